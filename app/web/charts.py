@@ -1,0 +1,109 @@
+"""Seven-day saturation chart per station, drawn with matplotlib.
+
+A ``Figure`` with its own SVG canvas: no pyplot global state and no display, so it is safe
+in a threaded web server and on a headless hatchery computer.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from zoneinfo import ZoneInfo
+
+import matplotlib
+import matplotlib.dates as mdates
+import numpy as np
+from matplotlib.backends.backend_svg import FigureCanvasSVG
+from matplotlib.figure import Figure
+
+from app.status.compute import DEFAULT_MAX_GAP, to_epoch_seconds
+
+# Our own palette: deep sea blue for the water as measured, kelp green family for the
+# water as the larvae will get it, brick red for the floor.
+IN_SITU_COLOUR = "#24527a"
+TANK_COLOURS = ("#2e8b57", "#7a9a01", "#0f766e", "#5b8c5a")
+FLOOR_COLOUR = "#b03a2e"
+UNDERSATURATED_FILL = "#f4d6d2"
+
+
+@dataclass(frozen=True)
+class Series:
+    label: str
+    times: Sequence[datetime]
+    values: Sequence[float | None]
+
+
+def _utc64(times: Sequence[datetime] | datetime) -> np.ndarray:
+    """Aware datetimes as naive UTC datetime64 (matplotlib's date axis works in UTC)."""
+    seconds = to_epoch_seconds([times] if isinstance(times, datetime) else times)
+    return (seconds * 1e6).astype(np.int64).astype("datetime64[us]")
+
+
+def _with_breaks(series: Series, max_gap: timedelta) -> tuple[np.ndarray, np.ndarray]:
+    """Times and values with a NaN inserted in every gap longer than ``max_gap``.
+
+    A line drawn across an outage would invent data that was never measured.
+    """
+    t = _utc64(series.times)
+    v = np.array([np.nan if x is None else x for x in series.values], dtype=float)
+    if t.size < 2:
+        return t, v
+    order = np.argsort(t)
+    t, v = t[order], v[order]
+    gaps = np.flatnonzero(np.diff(t) > np.timedelta64(max_gap))
+    if gaps.size:
+        t = np.insert(t, gaps + 1, t[gaps] + np.timedelta64(1, "s"))
+        v = np.insert(v, gaps + 1, np.nan)
+    return t, v
+
+
+def omega_week_svg(
+    *,
+    title: str,
+    in_situ: Series,
+    at_tank_temperature: Sequence[Series],
+    floors: Sequence[tuple[str, float]],
+    start: datetime,
+    end: datetime,
+    timezone: str,
+    max_gap: timedelta = DEFAULT_MAX_GAP,
+) -> str:
+    """Return an SVG document: omega aragonite in situ and at tank temperature, with floors.
+
+    Sized for a phone held upright (wide, short, large type); the SVG scales to its box.
+    """
+    zone = ZoneInfo(timezone)
+    fig = Figure(figsize=(8.0, 4.4), dpi=100)
+    FigureCanvasSVG(fig)
+    ax = fig.add_subplot(1, 1, 1)
+    ax.axhspan(0.0, 1.0, color=UNDERSATURATED_FILL, zorder=0, linewidth=0)
+
+    t, v = _with_breaks(in_situ, max_gap)
+    ax.plot(t, v, color=IN_SITU_COLOUR, linewidth=1.6,
+            label=in_situ.label)
+    for colour, series in zip(TANK_COLOURS * 4, at_tank_temperature, strict=False):
+        t, v = _with_breaks(series, max_gap)
+        ax.plot(t, v, color=colour, linewidth=2.2,
+                label=series.label)
+    for label, level in floors:
+        ax.axhline(level, color=FLOOR_COLOUR, linestyle=(0, (6, 3)), linewidth=1.6, label=label)
+
+    ax.set_xlim(_utc64(start)[0], _utc64(end)[0])
+    ax.set_ylim(bottom=0.0)
+    ax.set_ylabel("Ω aragonite", fontsize=13)
+    ax.set_title(title, fontsize=14, loc="left")
+    ax.xaxis.set_major_locator(mdates.DayLocator(tz=zone))
+    ax.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=zone))
+    ax.tick_params(labelsize=12)
+    ax.grid(True, color="#d9dee3", linewidth=0.8)
+    # Below the axes, so that it never hides a week's worth of data.
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), fontsize=11, frameon=False,
+              ncol=3)
+    fig.tight_layout()
+
+    buffer = io.StringIO()
+    with matplotlib.rc_context({"svg.hashsalt": "spatline", "svg.fonttype": "none"}):
+        fig.savefig(buffer, format="svg", metadata={"Date": None})
+    return buffer.getvalue()
