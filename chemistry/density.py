@@ -1,8 +1,8 @@
 """Seawater density at one standard atmosphere (EOS-80).
 
 The one-atmosphere International Equation of State of Seawater (EOS-80),
-Millero & Poisson 1981, adopted in UNESCO 1981 [millero_poisson1981]_
-[unesco1981]_. It turns the hatchery's volumetric doses (mg/L) and
+Millero & Poisson 1981, adopted in UNESCO 1981 (MilleroPoisson1981,
+UNESCO1981). It turns the hatchery's volumetric doses (mg/L) and
 laboratory alkalinity (mg/L as CaCO3) into the per-kilogram units the
 carbonate system is solved in. Tanks are at the surface, so the pressure
 terms of the full equation are not needed.
@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from chemistry.errors import check_salinity, check_temperature
 
-# Fitted range of the EOS-80 one-atmosphere equation, UNESCO 1981 [unesco1981]:
+# Fitted range of the EOS-80 one-atmosphere equation, UNESCO1981:
 # practical salinity 0-42, temperature -2 to 40 deg C. Inputs are accepted over
 # the package range (salinity 0-50, -2 to 45 deg C) so that every water the
 # carbonate solver accepts can be dosed; beyond the fitted range the polynomial
@@ -28,7 +28,7 @@ DENSITY_FITTED_SALINITY_RANGE = (0.0, 42.0)
 DENSITY_FITTED_TEMPERATURE_RANGE = (-2.0, 40.0)
 
 # Density of Standard Mean Ocean Water (pure water), Bigg 1967 as adopted in
-# UNESCO 1981 [unesco1981]; coefficients a0..a5 in kg/m3 per (deg C)**i.
+# UNESCO1981; coefficients a0..a5 in kg/m3 per (deg C)**i.
 _SMOW_COEFFICIENTS = (
     999.842594,
     6.793952e-2,
@@ -37,8 +37,8 @@ _SMOW_COEFFICIENTS = (
     -1.120083e-6,
     6.536332e-9,
 )
-# Salinity terms of the one-atmosphere equation, Millero & Poisson 1981
-# [millero_poisson1981]: B (times S), C (times S**1.5) and d0 (times S**2).
+# Salinity terms of the one-atmosphere equation, MilleroPoisson1981:
+# B (times S), C (times S**1.5) and d0 (times S**2).
 _B_COEFFICIENTS = (8.24493e-1, -4.0899e-3, 7.6438e-5, -8.2467e-7, 5.3875e-9)
 _C_COEFFICIENTS = (-5.72466e-3, 1.0227e-4, -1.6546e-6)
 _D0 = 4.8314e-4
@@ -69,7 +69,7 @@ def pure_water_density(temperature: ArrayLike) -> NDArray[np.float64]:
 
     References
     ----------
-    [unesco1981]_ (SMOW polynomial of Bigg 1967).
+    UNESCO1981 (SMOW polynomial of Bigg 1967).
     """
     t = check_temperature(temperature)
     return _polynomial(_SMOW_COEFFICIENTS, t)
@@ -100,11 +100,11 @@ def seawater_density(temperature: ArrayLike, salinity: ArrayLike) -> NDArray[np.
     -----
     rho(S, t, 0) = rho_w(t) + B(t) S + C(t) S**1.5 + d0 S**2, with rho_w the
     SMOW density. Standard error of the fit about 3.6e-3 kg/m3
-    [millero_poisson1981]_.
+    MilleroPoisson1981.
 
     References
     ----------
-    [millero_poisson1981]_, [unesco1981]_.
+    MilleroPoisson1981, UNESCO1981.
     """
     t = check_temperature(temperature)
     s = check_salinity(salinity)

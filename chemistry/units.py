@@ -19,8 +19,8 @@ kilogram (Dickson 1981 definition; the unit "umol/kg" counts protons).
 
 References
 ----------
-Keys refer to ``chemistry/bibliography.md``: [iupac2007_atomic_weights]_ for
-the molar mass, [millero_poisson1981]_ / [unesco1981]_ for the density.
+Keys refer to ``chemistry/bibliography.md``: IUPAC2007 for
+the molar mass, MilleroPoisson1981 / UNESCO1981 for the density.
 """
 
 from __future__ import annotations
@@ -31,7 +31,7 @@ from numpy.typing import ArrayLike, NDArray
 from chemistry.density import seawater_density
 from chemistry.errors import check_nonnegative
 
-# Standard atomic weights, g/mol, IUPAC 2007 [iupac2007_atomic_weights]
+# Standard atomic weights, g/mol, IUPAC2007
 # (Wieser & Berglund 2009). Kept here once; dosing builds its molar masses
 # from the same values.
 ATOMIC_WEIGHT = {
@@ -84,7 +84,7 @@ def alkalinity_from_mg_per_l_caco3(
 
     References
     ----------
-    [iupac2007_atomic_weights]_, [millero_poisson1981]_.
+    IUPAC2007, MilleroPoisson1981.
     """
     mg_per_l = check_nonnegative("alkalinity", value, unit="mg/L as CaCO3")
     return mg_per_l * _umol_per_kg_per_mg_per_l(temperature, salinity)
@@ -113,7 +113,7 @@ def mg_per_l_caco3_from_alkalinity(
 
     References
     ----------
-    [iupac2007_atomic_weights]_, [millero_poisson1981]_.
+    IUPAC2007, MilleroPoisson1981.
     """
     umol_per_kg = check_nonnegative("alkalinity", alkalinity, unit="umol/kg")
     return umol_per_kg / _umol_per_kg_per_mg_per_l(temperature, salinity)
