@@ -1,0 +1,99 @@
+"""Creating, finding and revoking API keys.
+
+A key is ``spl_`` followed by 43 URL-safe characters (32 random bytes from ``secrets``).
+Only its SHA-256 is stored, so a copied database does not give anyone a working key.
+The plaintext is returned once, by ``create_key``, and never logged.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import hmac
+import secrets
+
+from sqlalchemy import select, update
+from sqlalchemy.orm import Session
+
+from app.auth.models import ApiKey
+from app.db import utcnow
+
+KEY_PREFIX = "spl_"
+KEY_RANDOM_BYTES = 32
+ROLES = ("admin", "viewer", "device")
+# Writing last_used_at on every request would turn every read into a write.
+LAST_USED_RESOLUTION = dt.timedelta(minutes=1)
+
+
+def hash_key(plaintext: str) -> str:
+    return hashlib.sha256(plaintext.encode("utf-8")).hexdigest()
+
+
+def generate_key() -> str:
+    return KEY_PREFIX + secrets.token_urlsafe(KEY_RANDOM_BYTES)
+
+
+def create_key(
+    *, session: Session, role: str, label: str, device_id: str | None = None
+) -> tuple[ApiKey, str]:
+    """Add a new key to the session and return it with its plaintext (shown once)."""
+    if role not in ROLES:
+        raise ValueError(f"role must be one of {', '.join(ROLES)}; got {role!r}")
+    if (role == "device") != (device_id is not None):
+        raise ValueError("a device key needs a device_id, and only a device key may have one")
+    plaintext = generate_key()
+    api_key = ApiKey(
+        key_hash=hash_key(plaintext),
+        prefix=plaintext[:8],
+        role=role,
+        label=label,
+        device_id=device_id,
+        created_at=utcnow(),
+    )
+    session.add(api_key)
+    session.flush()
+    return api_key, plaintext
+
+
+def find_active_key(*, session: Session, plaintext: str) -> ApiKey | None:
+    """The unrevoked key whose hash matches ``plaintext``, or None."""
+    digest = hash_key(plaintext)
+    api_key = session.scalars(select(ApiKey).where(ApiKey.key_hash == digest)).one_or_none()
+    # The lookup goes through an index on the digest; the final comparison is constant-time
+    # so that no timing difference depends on how much of a guess matched.
+    if api_key is None or not hmac.compare_digest(api_key.key_hash, digest):
+        return None
+    if api_key.revoked_at is not None:
+        return None
+    return api_key
+
+
+def touch_key(*, session: Session, key_id: int, now: dt.datetime | None = None) -> None:
+    """Record that the key was used (one UPDATE; the caller commits)."""
+    session.execute(update(ApiKey).where(ApiKey.id == key_id).values(last_used_at=now or utcnow()))
+
+
+def needs_touch(api_key: ApiKey, now: dt.datetime) -> bool:
+    return api_key.last_used_at is None or now - api_key.last_used_at >= LAST_USED_RESOLUTION
+
+
+def list_keys(*, session: Session) -> list[ApiKey]:
+    return list(session.scalars(select(ApiKey).order_by(ApiKey.id)))
+
+
+def revoke_key(*, session: Session, key_id: int) -> ApiKey | None:
+    """Revoke a key (idempotent). None when no key has that id."""
+    api_key = session.get(ApiKey, key_id)
+    if api_key is None:
+        return None
+    if api_key.revoked_at is None:
+        api_key.revoked_at = utcnow()
+    return api_key
+
+
+def revoke_device_keys(*, session: Session, device_id: str) -> None:
+    session.execute(
+        update(ApiKey)
+        .where(ApiKey.device_id == device_id, ApiKey.revoked_at.is_(None))
+        .values(revoked_at=utcnow())
+    )

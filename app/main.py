@@ -1,0 +1,157 @@
+"""The application factory. Nothing connects at import time."""
+
+from __future__ import annotations
+
+import importlib
+import logging
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+from fastapi import APIRouter, FastAPI, Request
+from fastapi.responses import JSONResponse
+from sqlalchemy import Engine, text
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from app.db import make_engine, make_sessionmaker, read_only_engine
+from app.settings import Settings
+
+logger = logging.getLogger(__name__)
+
+API_PREFIX = "/api/v1"
+
+# One line per domain: the module that defines ``router`` (paths relative to /api/v1).
+ROUTER_MODULES: list[str] = [
+    "app.sites.router",
+]
+
+CAUTION = (
+    "**Caution.** The readings, derived chemistry, alerts and dose advice served here support, "
+    "and do not replace, the operator's judgement, local regulations and licensed practice. "
+    "Dissolve any chemical into a stock solution and add it in a mixed header tank, never "
+    "straight into a larval tank; measure the result; follow the safety data sheet."
+)
+
+DESCRIPTION = f"""
+Seawater carbonate chemistry for shellfish hatcheries: sensor readings with quality flags,
+aragonite saturation and the rest of the CO2 system derived for every reading, and tank
+advice.
+
+Send `Authorization: Bearer <key>`. Roles: **admin** configures sites, stations, tanks and
+devices; **viewer** reads; **device** posts readings for its own station only.
+
+{CAUTION}
+"""
+
+
+class BodyLimitMiddleware:
+    """Refuse request bodies over ``limit`` bytes with 413 before the app reads them whole."""
+
+    def __init__(self, app: ASGIApp, limit: int) -> None:
+        self.app = app
+        self.limit = limit
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        declared = dict(scope.get("headers") or []).get(b"content-length")
+        if declared is not None and declared.isdigit() and int(declared) > self.limit:
+            await self._refuse(send)
+            return
+        received = 0
+
+        async def limited_receive() -> Message:
+            nonlocal received
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > self.limit:
+                    raise _BodyTooLargeError
+            return message
+
+        try:
+            await self.app(scope, limited_receive, send)
+        except _BodyTooLargeError:
+            await self._refuse(send)
+
+    async def _refuse(self, send: Send) -> None:
+        response = JSONResponse(
+            status_code=413,
+            content={
+                "detail": f"The request body is larger than {self.limit} bytes; "
+                "send fewer readings per request."
+            },
+        )
+        await response({"type": "http"}, _no_receive, send)
+
+
+class _BodyTooLargeError(Exception):
+    pass
+
+
+async def _no_receive() -> Message:
+    return {"type": "http.disconnect"}
+
+
+def _health_router() -> APIRouter:
+    router = APIRouter(tags=["health"])
+
+    @router.get("/healthz", summary="Whether the service and its database answer")
+    def healthz(request: Request) -> JSONResponse:
+        try:
+            with request.app.state.read_engine.connect() as connection:
+                connection.execute(text("SELECT 1"))
+        except Exception as error:  # any failure means "the database does not answer"
+            logger.warning("health check: database did not answer: %s", type(error).__name__)
+            return JSONResponse(
+                status_code=503, content={"status": "error", "database": "unreachable"}
+            )
+        return JSONResponse(content={"status": "ok", "database": "ok"})
+
+    return router
+
+
+def create_app(settings: Settings | None = None, *, engine: Engine | None = None) -> FastAPI:
+    """Build the app. ``engine`` lets tests share theirs; otherwise one is made from settings."""
+    settings = settings or Settings()
+    owns_engine = engine is None
+    engine = engine if engine is not None else make_engine(settings)
+
+    @asynccontextmanager
+    async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
+        yield
+        if owns_engine:
+            engine.dispose()
+
+    app = FastAPI(
+        title="Spatline",
+        version=_version(),
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        docs_url="/docs",
+    )
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.read_engine = read_only_engine(engine)
+    app.state.sessionmaker = make_sessionmaker(engine)
+    app.state.read_sessionmaker = make_sessionmaker(app.state.read_engine)
+
+    app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
+    app.include_router(_health_router())
+    for module_name in ROUTER_MODULES:
+        module = importlib.import_module(module_name)
+        app.include_router(module.router, prefix=API_PREFIX)
+    return app
+
+
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("spatline")
+    except PackageNotFoundError:
+        return "0.0.0"
+
+
+__all__: list[Any] = ["API_PREFIX", "CAUTION", "ROUTER_MODULES", "create_app"]

@@ -1,0 +1,11 @@
+"""Every domain's models, imported so that ``Base.metadata`` holds the whole schema.
+
+Alembic (``migrations/env.py``) and the tests import this module; add one line per domain.
+"""
+
+from app.auth.models import ApiKey
+from app.db import Base
+from app.readings.models import Reading
+from app.sites.models import Device, Site, Station, Tank
+
+__all__ = ["ApiKey", "Base", "Device", "Reading", "Site", "Station", "Tank"]

@@ -1,0 +1,1 @@
+"""Sensor readings: model, QC, ingest, queries, CSV and router."""

@@ -1,0 +1,1 @@
+"""Sites, stations, tanks and devices: the hatchery's layout."""
