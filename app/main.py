@@ -23,6 +23,8 @@ API_PREFIX = "/api/v1"
 # One line per domain: the module that defines ``router`` (paths relative to /api/v1).
 ROUTER_MODULES: list[str] = [
     "app.sites.router",
+    "app.readings.router",
+    "app.alerts.router",
 ]
 
 CAUTION = (

@@ -3,9 +3,22 @@
 Alembic (``migrations/env.py``) and the tests import this module; add one line per domain.
 """
 
+from app.alerts.models import Alert, AlertRule, DailySummaryRecord, OutboxMessage
 from app.auth.models import ApiKey
 from app.db import Base
 from app.readings.models import Reading
 from app.sites.models import Device, Site, Station, Tank
 
-__all__ = ["ApiKey", "Base", "Device", "Reading", "Site", "Station", "Tank"]
+__all__ = [
+    "Alert",
+    "AlertRule",
+    "ApiKey",
+    "Base",
+    "DailySummaryRecord",
+    "Device",
+    "OutboxMessage",
+    "Reading",
+    "Site",
+    "Station",
+    "Tank",
+]

@@ -14,6 +14,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from app.alerts.rules import create_default_rules
 from app.auth.keys import create_key, revoke_device_keys
 from app.db import utcnow
 from app.readings.qc import limits_with_overrides
@@ -226,6 +227,7 @@ def create_tank(*, session: Session, site: Site, data: TankCreate) -> Tank:
     )
     session.add(tank)
     session.flush()
+    create_default_rules(session=session, tank=tank)
     return tank
 
 
