@@ -778,6 +778,8 @@ def validity_warnings(temperature, salinity, carbonic="lueker2000"):
     """
     t = _num(temperature)
     s = _num(salinity)
+    if np.size(t) == 0 or np.size(s) == 0:
+        return ()
     if type(t) is float:
         t_min = t_max = t
     else:
