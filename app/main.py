@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import importlib
 import logging
+import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from typing import Any
 
 from fastapi import APIRouter, FastAPI, Request
+from fastapi.encoders import jsonable_encoder
+from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from sqlalchemy import Engine, text
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
@@ -25,6 +28,9 @@ ROUTER_MODULES: list[str] = [
     "app.sites.router",
     "app.readings.router",
     "app.alerts.router",
+    "app.status.router",
+    "app.samples.router",
+    "app.batches.router",
 ]
 
 CAUTION = (
@@ -96,6 +102,25 @@ async def _no_receive() -> Message:
     return {"type": "http.disconnect"}
 
 
+def _json_safe(value: Any) -> Any:
+    """Replace NaN and infinities (not valid JSON) with their names."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return repr(value)
+    if isinstance(value, dict):
+        return {key: _json_safe(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_safe(item) for item in value]
+    return value
+
+
+async def _validation_error_handler(_request: Request, error: Exception) -> JSONResponse:
+    # FastAPI's own handler echoes the offending input, and a refused NaN or Infinity
+    # would make that answer itself unserialisable (a 500 instead of a 422).
+    assert isinstance(error, RequestValidationError)
+    detail = _json_safe(jsonable_encoder(error.errors()))
+    return JSONResponse(status_code=422, content={"detail": detail})
+
+
 def _health_router() -> APIRouter:
     router = APIRouter(tags=["health"])
 
@@ -140,6 +165,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     app.state.read_sessionmaker = make_sessionmaker(app.state.read_engine)
 
     app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
+    app.add_exception_handler(RequestValidationError, _validation_error_handler)
     app.include_router(_health_router())
     for module_name in ROUTER_MODULES:
         module = importlib.import_module(module_name)

@@ -5,8 +5,10 @@ Alembic (``migrations/env.py``) and the tests import this module; add one line p
 
 from app.alerts.models import Alert, AlertRule, DailySummaryRecord, OutboxMessage
 from app.auth.models import ApiKey
+from app.batches.models import LarvalBatch
 from app.db import Base
 from app.readings.models import Reading
+from app.samples.models import LabSample
 from app.sites.models import Device, Site, Station, Tank
 
 __all__ = [
@@ -16,6 +18,8 @@ __all__ = [
     "Base",
     "DailySummaryRecord",
     "Device",
+    "LabSample",
+    "LarvalBatch",
     "OutboxMessage",
     "Reading",
     "Site",

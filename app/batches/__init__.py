@@ -1,0 +1,1 @@
+"""Larval batches and their exposure to low saturation."""

@@ -1,0 +1,43 @@
+"""``GET /api/v1/sites/{site_id}/status``: the site's status for one site-local day."""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Annotated, Any
+
+from fastapi import APIRouter, HTTPException, Query, status
+
+from app.auth.dependencies import ReaderDep
+from app.db import SessionDep, utcnow
+from app.sites.models import Site
+from app.status.service import site_status
+
+router = APIRouter(tags=["status"])
+
+
+@router.get(
+    "/sites/{site_id}/status",
+    summary="A site's status for one local day",
+    description=(
+        "Per station: the latest reading and its age; the day's minimum, mean and maximum "
+        "of omega aragonite, pH (total scale), pCO2, temperature and salinity (failed "
+        "readings left out); completeness against the station's usual sampling interval; "
+        "QC counts by flag. Per tank: predicted omega aragonite at culture temperature with "
+        "its standard uncertainty and the probability below the floor, time-weighted "
+        "minutes below the floor that day, and dose advice. Open alerts, a fill-window hint "
+        "and the caution. `date` is the site-local day (default: today there)."
+    ),
+)
+def get_site_status(
+    site_id: str,
+    session: SessionDep,
+    _principal: ReaderDep,
+    day: Annotated[
+        date | None,
+        Query(alias="date", description="Site-local day, YYYY-MM-DD (default: today)."),
+    ] = None,
+) -> dict[str, Any]:
+    site = session.get(Site, site_id)
+    if site is None:
+        raise HTTPException(status.HTTP_404_NOT_FOUND, f"No site with id {site_id!r}.")
+    return site_status(session=session, site=site, day=day, now=utcnow())

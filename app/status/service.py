@@ -1,0 +1,470 @@
+"""A site's status for one site-local day, assembled from the database.
+
+The figures come from :mod:`app.status.compute` (pure), the tank predictions from
+:mod:`app.alerts.advice` (the same code that drives alerts and dose advice), so the API,
+the web page and the mail all show the same numbers.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import date, datetime, timedelta
+from typing import Any
+from zoneinfo import ZoneInfo
+
+import numpy as np
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+import chemistry
+from app.alerts.advice import alkalinity_uncertainty, predict_tank_water, tank_advice
+from app.alerts.models import Alert, AlertRule
+from app.alerts.state_machine import OPEN_ALERT_STATES
+from app.readings.models import Reading
+from app.sites.models import Site, Station, Tank
+from app.status import compute
+
+QC_FAIL = 4
+
+#: Variables summarised per station per day (column name on ``readings``).
+DAY_VARIABLES = ("omega_aragonite", "ph_total", "pco2_uatm", "temperature_c", "salinity")
+
+#: Look-back for the fill-window hint and for the usual sampling interval.
+LOOKBACK = timedelta(days=7)
+
+#: Shown when a station has too little history to tell its sampling interval (design
+#: default: the demo's and a common logger's 5-minute interval).
+FALLBACK_SAMPLING_INTERVAL = timedelta(minutes=5)
+
+#: Order of severity used to give a tank one alert state on the page.
+_ALERT_STATE_RANK = {"active": 3, "acknowledged": 2, "pending": 1}
+
+
+@dataclass(frozen=True)
+class DayWindow:
+    day: date
+    start: datetime
+    end: datetime
+    as_of: datetime  # the end, or now for today: nothing after it can exist yet
+
+    @property
+    def is_complete(self) -> bool:
+        return self.as_of >= self.end
+
+
+def day_window(site: Site, day: date | None, now: datetime) -> DayWindow:
+    zone = ZoneInfo(site.timezone)
+    local_day = day or now.astimezone(zone).date()
+    start, end = compute.local_day_window(local_day, site.timezone)
+    return DayWindow(local_day, start, end, min(end, now))
+
+
+# --------------------------------------------------------------------------------------
+# data access
+# --------------------------------------------------------------------------------------
+
+
+def station_readings(
+    *, session: Session, station_pk: int, start: datetime, end: datetime
+) -> list[Reading]:
+    """Readings of a station with start <= observed_at < end, in time order."""
+    return list(
+        session.scalars(
+            select(Reading)
+            .where(
+                Reading.station_pk == station_pk,
+                Reading.observed_at >= start,
+                Reading.observed_at < end,
+            )
+            .order_by(Reading.observed_at, Reading.id)
+        )
+    )
+
+
+def station_times(
+    *, session: Session, station_pk: int, start: datetime, end: datetime
+) -> list[datetime]:
+    return list(
+        session.scalars(
+            select(Reading.observed_at).where(
+                Reading.station_pk == station_pk,
+                Reading.observed_at >= start,
+                Reading.observed_at < end,
+            )
+        )
+    )
+
+
+def latest_reading(*, session: Session, station_pk: int, before: datetime) -> Reading | None:
+    return session.scalars(
+        select(Reading)
+        .where(Reading.station_pk == station_pk, Reading.observed_at < before)
+        .order_by(Reading.observed_at.desc(), Reading.id.desc())
+        .limit(1)
+    ).first()
+
+
+def latest_good_reading_before(
+    *, session: Session, station_pk: int, before: datetime
+) -> Reading | None:
+    """The newest derivable, not failed reading before ``before`` (the advice's input)."""
+    return session.scalars(
+        select(Reading)
+        .where(
+            Reading.station_pk == station_pk,
+            Reading.observed_at < before,
+            Reading.qc_overall != QC_FAIL,
+            Reading.ph_total.is_not(None),
+            Reading.alkalinity_used_umol_kg.is_not(None),
+            Reading.temperature_c.is_not(None),
+            Reading.salinity.is_not(None),
+        )
+        .order_by(Reading.observed_at.desc())
+        .limit(1)
+    ).first()
+
+
+def open_alerts(*, session: Session, site_id: str) -> list[tuple[Alert, AlertRule]]:
+    states = [str(s) for s in OPEN_ALERT_STATES]
+    rows = session.execute(
+        select(Alert, AlertRule)
+        .join(AlertRule, Alert.rule_id == AlertRule.id)
+        .where(Alert.site_id == site_id, Alert.state.in_(states))
+        .order_by(Alert.since)
+    ).all()
+    return [(alert, rule) for alert, rule in rows]
+
+
+# --------------------------------------------------------------------------------------
+# series of tank predictions
+# --------------------------------------------------------------------------------------
+
+
+def _good(readings: Sequence[Reading]) -> list[Reading]:
+    """Readings fit for statistics and predictions: not failed, chemistry derived."""
+    return [
+        r
+        for r in readings
+        if r.qc_overall != QC_FAIL
+        and r.ph_total is not None
+        and r.alkalinity_used_umol_kg is not None
+        and r.temperature_c is not None
+        and r.salinity is not None
+    ]
+
+
+@dataclass(frozen=True)
+class TankSeries:
+    times: list[datetime]
+    omega: np.ndarray
+    treated_omega: np.ndarray | None
+
+    @property
+    def larvae_omega(self) -> np.ndarray:
+        """What the larvae get: the treated water when the tank has a treatment (as the
+        alert rules judge it)."""
+        return self.omega if self.treated_omega is None else self.treated_omega
+
+
+def tank_prediction_series(
+    *, site: Site, tank: Tank, station: Station, readings: Sequence[Reading]
+) -> TankSeries:
+    """Predicted omega aragonite at culture temperature for each good reading."""
+    good = _good(readings)
+    if not good:
+        return TankSeries([], np.empty(0), None)
+    prediction = predict_tank_water(
+        site=site,
+        tank=tank,
+        station=station,
+        temperature=[r.temperature_c for r in good],
+        salinity=[r.salinity for r in good],
+        ph_total=[r.ph_total for r in good],
+        alkalinity=[r.alkalinity_used_umol_kg for r in good],
+        u_alkalinity=[alkalinity_uncertainty(station, r) for r in good],
+    )
+    return TankSeries(
+        [r.observed_at for r in good],
+        np.atleast_1d(prediction.omega_aragonite),
+        None
+        if prediction.treated_omega_aragonite is None
+        else np.atleast_1d(prediction.treated_omega_aragonite),
+    )
+
+
+def omega_at_temperature(
+    *, site: Site, readings: Sequence[Reading], temperature_c: float
+) -> tuple[list[datetime], np.ndarray]:
+    """Omega aragonite of each good reading's water carried to ``temperature_c`` (closed).
+
+    Without the uncertainty budget: the fill-window hint and the chart need the values only.
+    """
+    good = _good(readings)
+    if not good:
+        return [], np.empty(0)
+    state = chemistry.solve(
+        temperature=np.array([r.temperature_c for r in good], dtype=float),
+        salinity=np.array([r.salinity for r in good], dtype=float),
+        ph=np.array([r.ph_total for r in good], dtype=float),
+        alkalinity=np.array([r.alkalinity_used_umol_kg for r in good], dtype=float),
+        ph_scale="total",
+        carbonic=site.carbonic_constants,
+    )
+    carried = chemistry.at_temperature(state, float(temperature_c))
+    return [r.observed_at for r in good], np.atleast_1d(
+        np.asarray(carried.omega_aragonite, dtype=float)
+    )
+
+
+# --------------------------------------------------------------------------------------
+# the status
+# --------------------------------------------------------------------------------------
+
+
+def _reading_summary(reading: Reading, as_of: datetime) -> dict[str, Any]:
+    return {
+        "observed_at": reading.observed_at,
+        "age_minutes": (as_of - reading.observed_at).total_seconds() / 60.0,
+        "omega_aragonite": reading.omega_aragonite,
+        "omega_aragonite_uncertainty": reading.omega_aragonite_uncertainty,
+        "ph_total": reading.ph_total,
+        "pco2_uatm": reading.pco2_uatm,
+        "temperature_c": reading.temperature_c,
+        "salinity": reading.salinity,
+        "qc_overall": reading.qc_overall,
+    }
+
+
+def station_status(
+    *, session: Session, station: Station, window: DayWindow, max_gap: timedelta
+) -> dict[str, Any]:
+    day_readings = station_readings(
+        session=session, station_pk=station.pk, start=window.start, end=window.as_of
+    )
+    usable = [r for r in day_readings if r.qc_overall != QC_FAIL]
+    history = station_times(
+        session=session,
+        station_pk=station.pk,
+        start=window.as_of - LOOKBACK,
+        end=window.as_of,
+    )
+    inferred = compute.infer_sampling_interval(history)
+    interval = inferred or FALLBACK_SAMPLING_INTERVAL
+    latest = latest_reading(session=session, station_pk=station.pk, before=window.as_of)
+    return {
+        "station_id": station.id,
+        "name": station.name,
+        "role": station.role,
+        "latest_reading": None if latest is None else _reading_summary(latest, window.as_of),
+        "day": {
+            name: compute.day_range([getattr(r, name) for r in usable]).as_dict()
+            for name in DAY_VARIABLES
+        },
+        "readings": len(day_readings),
+        "expected_interval_minutes": interval.total_seconds() / 60.0,
+        "expected_interval_inferred": inferred is not None,
+        "completeness_percent": compute.completeness_percent(
+            [r.observed_at for r in day_readings],
+            start=window.start,
+            end=window.as_of,
+            expected_interval=interval,
+        ),
+        "qc_counts": compute.qc_counts(r.qc_overall for r in day_readings),
+    }
+
+
+def _tank_alert_state(tank: Tank, alerts: Sequence[tuple[Alert, AlertRule]]) -> str | None:
+    states = [
+        alert.state
+        for alert, rule in alerts
+        if rule.tank_pk == tank.pk
+        or (rule.tank_pk is None and rule.station_pk == tank.source_station_pk)
+    ]
+    return max(states, key=lambda s: _ALERT_STATE_RANK.get(s, 0)) if states else None
+
+
+def tank_status(
+    *,
+    session: Session,
+    site: Site,
+    tank: Tank,
+    window: DayWindow,
+    alerts: Sequence[tuple[Alert, AlertRule]],
+    max_gap: timedelta,
+) -> dict[str, Any]:
+    station = tank.source_station
+    # One reading either side of the day so that pieces crossing midnight are counted.
+    readings = station_readings(
+        session=session,
+        station_pk=station.pk,
+        start=window.start - max_gap,
+        end=window.as_of + max_gap,
+    )
+    series = tank_prediction_series(site=site, tank=tank, station=station, readings=readings)
+    floor = float(tank.omega_floor)
+    span = {"start": window.start, "end": window.as_of, "max_gap": max_gap}
+    minutes = compute.minutes_below(series.times, series.larvae_omega, floor, **span)
+    covered = compute.covered_minutes(series.times, series.larvae_omega, **span)
+    minutes_untreated = compute.minutes_below(series.times, series.omega, floor, **span)
+
+    reading = latest_good_reading_before(
+        session=session, station_pk=station.pk, before=window.as_of
+    )
+    advice = None
+    if reading is not None:
+        advice = tank_advice(session=session, site=site, tank=tank, reading=reading)
+    predicted = None
+    after_treatment = None
+    dose = None
+    if advice is not None:
+        water = advice["in_tank"]
+        predicted = {
+            "observed_at": reading.observed_at,
+            "omega_aragonite": water["omega_aragonite"],
+            "omega_aragonite_uncertainty": water["omega_aragonite_uncertainty"],
+            "probability_below_floor": water["probability_below_floor"],
+            "ph_total": water["ph_total"],
+            "pco2_uatm": water["pco2_uatm"],
+        }
+        treated = advice.get("after_treatment")
+        if treated:
+            after_treatment = {
+                "omega_aragonite": treated["omega_aragonite"],
+                "omega_aragonite_uncertainty": treated["omega_aragonite_uncertainty"],
+                "probability_below_floor": treated["probability_below_floor"],
+            }
+        dose = advice["dose"]
+    return {
+        "tank_id": tank.id,
+        "name": tank.name,
+        "stage": tank.stage,
+        "source_station_id": station.id,
+        "volume_l": float(tank.volume_l),
+        "culture_temperature_c": float(tank.culture_temperature_c),
+        "omega_floor": floor,
+        "omega_target": float(tank.omega_target),
+        "treatment": tank.treatment,
+        "predicted": predicted,
+        "after_treatment": after_treatment,
+        "minutes_below_floor": minutes,
+        "minutes_below_floor_untreated": minutes_untreated,
+        "minutes_with_data": covered,
+        "alert_state": _tank_alert_state(tank, alerts),
+        "dose": dose,
+    }
+
+
+def fill_window_hints(
+    *,
+    session: Session,
+    site: Site,
+    stations: Sequence[Station],
+    tanks: Sequence[Tank],
+    window: DayWindow,
+) -> list[dict[str, Any]]:
+    """Per intake station and tank temperature: best local hours over the last 7 days.
+
+    Intake stations are the ones the hint is about (water taken in to fill); a site
+    without one falls back to the stations that feed its tanks.
+    """
+    sources = [s for s in stations if s.role == "intake"]
+    if not sources:
+        fed = {t.source_station_pk for t in tanks}
+        sources = [s for s in stations if s.pk in fed]
+    temperatures = sorted({float(t.culture_temperature_c) for t in tanks})
+    hints = []
+    for station in sources:
+        readings = station_readings(
+            session=session,
+            station_pk=station.pk,
+            start=window.as_of - LOOKBACK,
+            end=window.as_of,
+        )
+        for temperature in temperatures:
+            times, omega = omega_at_temperature(
+                site=site, readings=readings, temperature_c=temperature
+            )
+            hint = compute.fill_window_hint(times, omega, timezone=site.timezone)
+            hints.append(
+                {
+                    "station_id": station.id,
+                    "culture_temperature_c": temperature,
+                    "tank_ids": [
+                        t.id for t in tanks if float(t.culture_temperature_c) == temperature
+                    ],
+                    "lookback_days": LOOKBACK.days,
+                    **hint.as_dict(),
+                }
+            )
+    return hints
+
+
+def alert_summary(alert: Alert, rule: AlertRule, tanks_by_pk: dict[int, Tank],
+                  stations_by_pk: dict[int, Station]) -> dict[str, Any]:
+    return {
+        "id": alert.id,
+        "rule_id": rule.id,
+        "metric": rule.metric,
+        "direction": rule.direction,
+        "level": rule.level,
+        "tank_id": tanks_by_pk[rule.tank_pk].id if rule.tank_pk in tanks_by_pk else None,
+        "station_id": (
+            stations_by_pk[rule.station_pk].id if rule.station_pk in stations_by_pk else None
+        ),
+        "state": alert.state,
+        "since": alert.since,
+        "raised_at": alert.raised_at,
+        "last_value": alert.last_value,
+        "last_value_uncertainty": alert.last_value_uncertainty,
+        "acknowledged_at": alert.acknowledged_at,
+        "acknowledged_by": alert.acknowledged_by,
+        "caution": chemistry.DOSING_CAUTION,
+    }
+
+
+def site_status(
+    *,
+    session: Session,
+    site: Site,
+    day: date | None,
+    now: datetime,
+    max_gap: timedelta = compute.DEFAULT_MAX_GAP,
+) -> dict[str, Any]:
+    """Everything the daily status shows, as JSON-able data."""
+    window = day_window(site, day, now)
+    stations = list(
+        session.scalars(select(Station).where(Station.site_id == site.id).order_by(Station.id))
+    )
+    tanks = list(session.scalars(select(Tank).where(Tank.site_id == site.id).order_by(Tank.id)))
+    alerts = open_alerts(session=session, site_id=site.id)
+    tanks_by_pk = {t.pk: t for t in tanks}
+    stations_by_pk = {s.pk: s for s in stations}
+    return {
+        "site_id": site.id,
+        "site_name": site.name,
+        "timezone": site.timezone,
+        "date": window.day,
+        "start": window.start,
+        "end": window.end,
+        "as_of": window.as_of,
+        "day_complete": window.is_complete,
+        "max_gap_minutes": max_gap.total_seconds() / 60.0,
+        "stations": [
+            station_status(session=session, station=s, window=window, max_gap=max_gap)
+            for s in stations
+        ],
+        "tanks": [
+            tank_status(
+                session=session, site=site, tank=t, window=window, alerts=alerts,
+                max_gap=max_gap,
+            )
+            for t in tanks
+        ],
+        "open_alerts": [alert_summary(a, r, tanks_by_pk, stations_by_pk) for a, r in alerts],
+        "fill_window": fill_window_hints(
+            session=session, site=site, stations=stations, tanks=tanks, window=window
+        ),
+        "chemistry_version": chemistry.CHEMISTRY_VERSION,
+        "caution": chemistry.DOSING_CAUTION,
+    }
