@@ -29,6 +29,7 @@ METRIC_WORDS = {
     "salinity": ("salinity", ""),
     "no_data": ("time without a reading", " min"),
     "qc_failed": ("QC flag", ""),
+    "sensor_drift": ("pH sensor offset from the latest bottle sample (size)", ""),
 }
 KIND_WORDS = {"raised": "ALERT", "reminder": "STILL ACTIVE", "cleared": "CLEARED"}
 
