@@ -1,0 +1,621 @@
+"""Storing sensor readings: validation, duplicates, derived chemistry and QC.
+
+``ingest_readings`` is the one code path for every way readings arrive (the HTTP API,
+the CSV importer, the demo loader). It runs inside the caller's transaction and leaves
+the commit to the caller, so the readings, the QC flags of their neighbours and any
+alert change commit or roll back together.
+
+Duplicates: a reading is identified by (station, source, observed_at) and, when the
+sensor gives one, by (station, source, reading_id). A retry with the same values is
+counted as a duplicate; the same key with other values is rejected, never overwritten.
+Two requests racing with the same reading are settled by the unique constraints
+(``INSERT ... ON CONFLICT DO NOTHING``), not by the check that precedes the insert.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import logging
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from sqlalchemy import Select, and_, or_, select, update
+from sqlalchemy.orm import Session
+
+from app.readings.models import Reading
+from app.readings.qc import QcFlag, QcLimits, limits_with_overrides, run_qc
+from app.readings.schemas import ReadingIn, RejectedItem, validate_reading
+from app.sites.models import Site, Station
+
+logger = logging.getLogger(__name__)
+
+# Standard uncertainty of the alkalinity used, umol/kg, when the station does not say.
+# Design defaults: a careful hatchery titration is good to about 10 umol/kg (common
+# practice); an assumed constant or a salinity line stands for water that varies, so
+# it gets twice that.
+DEFAULT_ALKALINITY_UNCERTAINTY: Mapping[str, float] = {
+    "reading": 10.0,
+    "fixed": 20.0,
+    "salinity_line": 20.0,
+}
+
+# Database round trips: IN lists and executemany batches are kept at this size.
+CHUNK = 900
+
+QC_COLUMNS = (
+    "qc_temperature",
+    "qc_salinity",
+    "qc_ph",
+    "qc_alkalinity",
+    "qc_derived",
+    "qc_overall",
+)
+
+DERIVED_COLUMNS = (
+    "ph_total",
+    "dic_umol_kg",
+    "pco2_uatm",
+    "carbonate_umol_kg",
+    "omega_aragonite",
+    "omega_calcite",
+    "omega_aragonite_uncertainty",
+)
+
+
+@dataclass
+class IngestResult:
+    accepted: int = 0
+    duplicates: int = 0
+    rejected: list[RejectedItem] = field(default_factory=list)
+    stored_ids: list[int] = field(default_factory=list)
+
+    def reject(self, index: int, errors: list[str]) -> None:
+        self.rejected.append(RejectedItem(index=index, errors=errors))
+
+
+@dataclass
+class _Candidate:
+    index: int
+    reading: ReadingIn
+    alkalinity_input: float | None = None
+
+    @property
+    def identity(self) -> tuple[Any, ...]:
+        """The raw values a retry must repeat exactly to count as a duplicate."""
+        r = self.reading
+        return (r.temperature_c, r.salinity, r.ph, r.ph_scale, self.alkalinity_input)
+
+
+def _same_values(stored: tuple[Any, ...], posted: tuple[Any, ...]) -> bool:
+    for old, new in zip(stored, posted, strict=True):
+        if old is None or new is None:
+            if old is not new:
+                return False
+        elif isinstance(old, float) or isinstance(new, float):
+            # The stored float went through the database; allow for its last bit only.
+            if not math.isclose(float(old), float(new), rel_tol=1e-12, abs_tol=1e-12):
+                return False
+        elif old != new:
+            return False
+    return True
+
+
+def _chunks(items: Sequence[Any], size: int = CHUNK) -> list[Sequence[Any]]:
+    return [items[start : start + size] for start in range(0, len(items), size)]
+
+
+def _stored_matches(
+    session: Session, *, station_pk: int, source: str, candidates: Sequence[_Candidate]
+) -> list[Any]:
+    """Stored readings of this station and source sharing a time or id with a candidate."""
+    rows: list[Any] = []
+    for chunk in _chunks(candidates):
+        times = [c.reading.observed_at for c in chunk]
+        ids = [c.reading.reading_id for c in chunk if c.reading.reading_id is not None]
+        key = Reading.observed_at.in_(times)
+        if ids:
+            key = or_(key, Reading.reading_id.in_(ids))
+        query = select(
+            Reading.id,
+            Reading.observed_at,
+            Reading.reading_id,
+            Reading.temperature_c,
+            Reading.salinity,
+            Reading.ph,
+            Reading.ph_scale,
+            Reading.alkalinity_input_umol_kg,
+        ).where(Reading.station_pk == station_pk, Reading.source == source, key)
+        rows.extend(session.execute(query).all())
+    return rows
+
+
+def _classify_against_stored(
+    candidates: Sequence[_Candidate], stored: Sequence[Any], result: IngestResult
+) -> list[_Candidate]:
+    """Count duplicates, reject conflicts, return the candidates that are new."""
+    by_time = {row.observed_at: row for row in stored}
+    by_id = {row.reading_id: row for row in stored if row.reading_id is not None}
+    fresh: list[_Candidate] = []
+    for candidate in candidates:
+        reading = candidate.reading
+        same_time = by_time.get(reading.observed_at)
+        same_id = by_id.get(reading.reading_id) if reading.reading_id is not None else None
+        if same_time is None and same_id is None:
+            fresh.append(candidate)
+            continue
+        matched = same_time or same_id
+        stored_values = (
+            matched.temperature_c,
+            matched.salinity,
+            matched.ph,
+            matched.ph_scale,
+            matched.alkalinity_input_umol_kg,
+        )
+        id_agrees = reading.reading_id is None or matched.reading_id in (None, reading.reading_id)
+        if (
+            (same_time is None or same_id is None or same_time.id == same_id.id)
+            and matched.observed_at == reading.observed_at
+            and id_agrees
+            and _same_values(stored_values, candidate.identity)
+        ):
+            result.duplicates += 1
+            continue
+        key = (
+            f"reading_id {reading.reading_id!r}"
+            if same_id is not None
+            else f"observed_at {reading.observed_at.isoformat()}"
+        )
+        result.reject(
+            candidate.index,
+            [
+                f"a reading with {key} is already stored for this sensor with different "
+                "values; stored readings are never overwritten (send a new reading_id or "
+                "observed_at)"
+            ],
+        )
+    return fresh
+
+
+def _deduplicate_batch(candidates: Sequence[_Candidate], result: IngestResult) -> list[_Candidate]:
+    """Settle repeats inside one request: the first item of a key wins."""
+    first_by_time: dict[dt.datetime, _Candidate] = {}
+    first_by_id: dict[str, _Candidate] = {}
+    unique: list[_Candidate] = []
+    for candidate in candidates:
+        reading = candidate.reading
+        earlier = first_by_time.get(reading.observed_at)
+        if earlier is None and reading.reading_id is not None:
+            earlier = first_by_id.get(reading.reading_id)
+        if earlier is None:
+            first_by_time[reading.observed_at] = candidate
+            if reading.reading_id is not None:
+                first_by_id[reading.reading_id] = candidate
+            unique.append(candidate)
+            continue
+        if (
+            earlier.reading.observed_at == reading.observed_at
+            and earlier.reading.reading_id == reading.reading_id
+            and _same_values(earlier.identity, candidate.identity)
+        ):
+            result.duplicates += 1
+        else:
+            result.reject(
+                candidate.index,
+                [
+                    f"item {earlier.index} of this request has the same observed_at or "
+                    "reading_id with different values"
+                ],
+            )
+    return unique
+
+
+def _convert_alkalinity(candidates: Sequence[_Candidate]) -> None:
+    from chemistry import alkalinity_from_mg_per_l_caco3
+
+    in_mg = [c for c in candidates if c.reading.alkalinity_mg_l_caco3 is not None]
+    if in_mg:
+        converted = alkalinity_from_mg_per_l_caco3(
+            np.array([c.reading.alkalinity_mg_l_caco3 for c in in_mg]),
+            np.array([c.reading.temperature_c for c in in_mg]),
+            np.array([c.reading.salinity for c in in_mg]),
+        )
+        for candidate, value in zip(in_mg, np.atleast_1d(converted), strict=True):
+            candidate.alkalinity_input = float(value)
+    for candidate in candidates:
+        if candidate.reading.alkalinity_umol_kg is not None:
+            candidate.alkalinity_input = candidate.reading.alkalinity_umol_kg
+
+
+def _alkalinity_used(
+    candidates: Sequence[_Candidate], station: Station
+) -> tuple[np.ndarray, np.ndarray, list[str | None]]:
+    """Alkalinity used per candidate (umol/kg, NaN if none), its uncertainty and source."""
+    mode = station.alkalinity or {"mode": "reading"}
+    kind = mode.get("mode", "reading")
+    used = np.full(len(candidates), np.nan)
+    uncertainty = np.full(len(candidates), np.nan)
+    sources: list[str | None] = [None] * len(candidates)
+    for i, candidate in enumerate(candidates):
+        salinity = candidate.reading.salinity
+        if candidate.alkalinity_input is not None:
+            used[i] = candidate.alkalinity_input
+            uncertainty[i] = DEFAULT_ALKALINITY_UNCERTAINTY["reading"]
+            sources[i] = "reading"
+        elif kind == "fixed" and mode.get("value") is not None:
+            used[i] = float(mode["value"])
+            uncertainty[i] = float(
+                mode.get("uncertainty") or DEFAULT_ALKALINITY_UNCERTAINTY["fixed"]
+            )
+            sources[i] = "fixed"
+        elif kind == "salinity_line" and salinity is not None:
+            used[i] = float(mode["slope"]) * salinity + float(mode["intercept"])
+            uncertainty[i] = float(
+                mode.get("residual_sd") or DEFAULT_ALKALINITY_UNCERTAINTY["salinity_line"]
+            )
+            sources[i] = "salinity_line"
+    return used, uncertainty, sources
+
+
+def _derive(
+    *,
+    temperature: np.ndarray,
+    salinity: np.ndarray,
+    ph: np.ndarray,
+    ph_scale: Sequence[str | None],
+    alkalinity: np.ndarray,
+    u_alkalinity: np.ndarray,
+    u_ph: float,
+    carbonic: str,
+) -> dict[str, np.ndarray]:
+    """Chemistry at in-situ temperature for every derivable reading (NaN elsewhere).
+
+    One vectorised ``solve`` per pH scale present; a batch the engine refuses as a
+    whole is retried reading by reading, so one underivable reading costs only itself.
+    """
+    from chemistry import ChemistryInputError, solve, standard_uncertainty
+
+    size = temperature.size
+    out = {name: np.full(size, np.nan) for name in DERIVED_COLUMNS}
+    scales = np.array([s or "" for s in ph_scale])
+    derivable = (
+        np.isfinite(temperature)
+        & np.isfinite(salinity)
+        & np.isfinite(ph)
+        & np.isfinite(alkalinity)
+        & (scales != "")
+    )
+
+    def run(index: np.ndarray, scale: str) -> None:
+        inputs = dict(
+            temperature=temperature[index],
+            salinity=salinity[index],
+            ph=ph[index],
+            alkalinity=alkalinity[index],
+            ph_scale=scale,
+            carbonic=carbonic,
+        )
+        state = solve(**inputs)
+        uncertainty = standard_uncertainty(**inputs, u_ph=u_ph, u_alkalinity=u_alkalinity[index])
+        values = {
+            "ph_total": state.ph_total,
+            "dic_umol_kg": state.dic,
+            "pco2_uatm": state.pco2,
+            "carbonate_umol_kg": state.carbonate,
+            "omega_aragonite": state.omega_aragonite,
+            "omega_calcite": state.omega_calcite,
+            "omega_aragonite_uncertainty": uncertainty["omega_aragonite"],
+        }
+        for name, value in values.items():
+            out[name][index] = np.broadcast_to(np.asarray(value, dtype=float), index.shape)
+
+    for scale in sorted(set(scales[derivable].tolist())):
+        index = np.flatnonzero(derivable & (scales == scale))
+        try:
+            run(index, scale)
+        except ChemistryInputError:
+            for single in index:
+                try:
+                    run(np.array([single]), scale)
+                except ChemistryInputError as error:
+                    logger.info("reading not derived: %s", error)
+    return out
+
+
+def _float_or_nan(value: float | None) -> float:
+    return np.nan if value is None else float(value)
+
+
+def _qc_limits(station: Station) -> Mapping[str, QcLimits]:
+    try:
+        return limits_with_overrides(station.qc_limits or None)
+    except ValueError as error:
+        # Limits are validated when a station is saved; a stored set that no longer
+        # validates must not stop readings from being stored.
+        logger.warning("station %s: QC limits ignored (%s); using the defaults", station.pk, error)
+        return limits_with_overrides(None)
+
+
+def _context_query(station_pk: int, start: dt.datetime, end: dt.datetime) -> Select[Any]:
+    return (
+        select(
+            Reading.id,
+            Reading.observed_at,
+            Reading.temperature_c,
+            Reading.salinity,
+            Reading.ph,
+            Reading.alkalinity_input_umol_kg,
+            Reading.alkalinity_source,
+            Reading.omega_aragonite,
+            *(getattr(Reading, name) for name in QC_COLUMNS),
+        )
+        .where(
+            Reading.station_pk == station_pk,
+            and_(Reading.observed_at >= start, Reading.observed_at <= end),
+        )
+        .order_by(Reading.observed_at, Reading.id)
+    )
+
+
+def _quality_control(
+    session: Session,
+    *,
+    station: Station,
+    times: list[dt.datetime],
+    temperature: np.ndarray,
+    salinity: np.ndarray,
+    ph: np.ndarray,
+    alkalinity_input: np.ndarray,
+    alkalinity_source: Sequence[str | None],
+    derived_available: np.ndarray,
+) -> tuple[dict[str, np.ndarray], list[dict[str, Any]]]:
+    """QC flags for the new readings and the changed flags of stored neighbours.
+
+    The new readings are tested together with the station's stored readings around
+    them, in time order: a backfilled reading is judged against its neighbours in
+    time, and neighbours whose tests it touches (the spike test of the reading before
+    it, the rate-of-change window of the readings after it) are tested again.
+    """
+    limits = _qc_limits(station)
+    window = dt.timedelta(hours=max(lim.rate_of_change_window_hours for lim in limits.values()))
+    gap = dt.timedelta(minutes=max(lim.max_gap_minutes for lim in limits.values()))
+    first, last = min(times), max(times)
+    stored = session.execute(
+        _context_query(station.pk, first - window - gap, last + window + gap)
+    ).all()
+    affected_from, affected_to = first - gap, last + window
+
+    count = len(stored)
+    epoch = dt.datetime(1970, 1, 1, tzinfo=dt.UTC)
+    seconds = np.array(
+        [(row.observed_at - epoch).total_seconds() for row in stored]
+        + [(t - epoch).total_seconds() for t in times]
+    )
+    from_station = np.array(
+        [row.alkalinity_source in ("fixed", "salinity_line") for row in stored]
+        + [source in ("fixed", "salinity_line") for source in alkalinity_source],
+        dtype=bool,
+    )
+    available = np.concatenate(
+        [
+            np.array([row.omega_aragonite is not None for row in stored], dtype=bool),
+            derived_available,
+        ]
+    )
+
+    def column(name: str, new: np.ndarray) -> np.ndarray:
+        return np.concatenate(
+            [np.array([_float_or_nan(getattr(row, name)) for row in stored]), new]
+        )
+
+    result = run_qc(
+        times=seconds,
+        temperature=column("temperature_c", temperature),
+        salinity=column("salinity", salinity),
+        ph=column("ph", ph),
+        alkalinity=column("alkalinity_input_umol_kg", alkalinity_input),
+        alkalinity_from_station=from_station,
+        derived_available=available,
+        limits=limits,
+    )
+    flags = {
+        "qc_temperature": result.temperature,
+        "qc_salinity": result.salinity,
+        "qc_ph": result.ph,
+        "qc_alkalinity": result.alkalinity,
+        "qc_derived": result.derived,
+        "qc_overall": result.overall,
+    }
+    changes: list[dict[str, Any]] = []
+    for i, row in enumerate(stored):
+        if not affected_from <= row.observed_at <= affected_to:
+            continue
+        new_flags = {name: int(flags[name][i]) for name in QC_COLUMNS}
+        if any(getattr(row, name) != value for name, value in new_flags.items()):
+            changes.append({"id": row.id, **new_flags})
+    new_reading_flags = {name: flags[name][count:] for name in QC_COLUMNS}
+    return new_reading_flags, changes
+
+
+def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
+    """Insert rows, skipping any that a concurrent request stored first.
+
+    Returns the id of every row this call stored, by observed_at (unique per station
+    and source).
+    """
+    dialect = session.get_bind().dialect.name
+    if dialect == "postgresql":
+        from sqlalchemy.dialects.postgresql import insert
+    elif dialect == "sqlite":
+        from sqlalchemy.dialects.sqlite import insert
+    else:  # pragma: no cover - the service supports these two databases only
+        raise RuntimeError(f"unsupported database dialect {dialect!r}")
+    stored: dict[dt.datetime, int] = {}
+    for chunk in _chunks(rows):
+        statement = (
+            insert(Reading)
+            .values(list(chunk))
+            .on_conflict_do_nothing()
+            .returning(Reading.id, Reading.observed_at)
+        )
+        for row_id, observed_at in session.execute(statement).all():
+            stored[observed_at] = row_id
+    return stored
+
+
+def ingest_readings(
+    *,
+    session: Session,
+    station: Station,
+    source: str,
+    items: Sequence[Any],
+    now: dt.datetime,
+    index_offset: int = 0,
+) -> IngestResult:
+    """Validate, deduplicate, derive, QC and store readings of one station and source.
+
+    Parameters
+    ----------
+    session : Session
+        The caller's session; this function flushes but does not commit.
+    station : Station
+        The station the readings belong to.
+    source : str
+        The device id, or ``"import"`` for readings loaded from a file.
+    items : sequence
+        Raw reading objects (dicts as posted); each is validated on its own.
+    now : datetime
+        The ingest time (UTC): received_at, and the limit for future timestamps.
+    index_offset : int
+        Added to the item positions in the rejection list (for callers that feed a
+        long file in chunks).
+
+    Returns
+    -------
+    IngestResult
+        Counts of accepted and duplicate readings, the rejected items with sentences
+        saying why, and the ids of the stored readings.
+    """
+    from chemistry import CHEMISTRY_VERSION
+
+    result = IngestResult()
+    candidates: list[_Candidate] = []
+    for position, item in enumerate(items):
+        validated = validate_reading(item, now=now)
+        if isinstance(validated, ReadingIn):
+            candidates.append(_Candidate(index=index_offset + position, reading=validated))
+        else:
+            result.reject(index_offset + position, validated)
+
+    _convert_alkalinity(candidates)
+    candidates = _deduplicate_batch(candidates, result)
+    if candidates:
+        stored = _stored_matches(
+            session, station_pk=station.pk, source=source, candidates=candidates
+        )
+        candidates = _classify_against_stored(candidates, stored, result)
+    if not candidates:
+        result.rejected.sort(key=lambda item: item.index)
+        return result
+
+    site = session.get(Site, station.site_id)
+    carbonic = site.carbonic_constants if site is not None else "lueker2000"
+    temperature = np.array([_float_or_nan(c.reading.temperature_c) for c in candidates])
+    salinity = np.array([_float_or_nan(c.reading.salinity) for c in candidates])
+    ph = np.array([_float_or_nan(c.reading.ph) for c in candidates])
+    scales = [c.reading.ph_scale for c in candidates]
+    alkalinity_input = np.array([_float_or_nan(c.alkalinity_input) for c in candidates])
+    alkalinity, u_alkalinity, alkalinity_source = _alkalinity_used(candidates, station)
+    derived = _derive(
+        temperature=temperature,
+        salinity=salinity,
+        ph=ph,
+        ph_scale=scales,
+        alkalinity=alkalinity,
+        u_alkalinity=u_alkalinity,
+        u_ph=float(station.ph_uncertainty),
+        carbonic=carbonic,
+    )
+    derived_available = np.isfinite(derived["omega_aragonite"])
+    flags, neighbour_changes = _quality_control(
+        session,
+        station=station,
+        times=[c.reading.observed_at for c in candidates],
+        temperature=temperature,
+        salinity=salinity,
+        ph=ph,
+        alkalinity_input=alkalinity_input,
+        alkalinity_source=alkalinity_source,
+        derived_available=derived_available,
+    )
+
+    def finite(value: float) -> float | None:
+        return float(value) if math.isfinite(value) else None
+
+    rows: list[dict[str, Any]] = []
+    for i, candidate in enumerate(candidates):
+        reading = candidate.reading
+        row: dict[str, Any] = {
+            "station_pk": station.pk,
+            "source": source,
+            "reading_id": reading.reading_id,
+            "observed_at": reading.observed_at,
+            "received_at": now,
+            "temperature_c": reading.temperature_c,
+            "salinity": reading.salinity,
+            "ph": reading.ph,
+            "ph_scale": reading.ph_scale,
+            "alkalinity_input_umol_kg": candidate.alkalinity_input,
+            "alkalinity_used_umol_kg": finite(alkalinity[i]),
+            "alkalinity_source": alkalinity_source[i],
+            "chemistry_version": CHEMISTRY_VERSION if derived_available[i] else None,
+        }
+        row.update({name: finite(derived[name][i]) for name in DERIVED_COLUMNS})
+        row.update({name: int(flags[name][i]) for name in QC_COLUMNS})
+        rows.append(row)
+
+    inserted = _insert_new(session, rows)
+    raced = [c for c in candidates if c.reading.observed_at not in inserted]
+    if raced:
+        # Another request stored these between our check and our insert.
+        stored = _stored_matches(session, station_pk=station.pk, source=source, candidates=raced)
+        for leftover in _classify_against_stored(raced, stored, result):
+            result.reject(
+                leftover.index,
+                [
+                    "a reading with this reading_id is already stored for this sensor at another "
+                    "time; stored readings are never overwritten"
+                ],
+            )
+    if neighbour_changes:
+        for chunk in _chunks(neighbour_changes):
+            session.execute(update(Reading), list(chunk))
+    result.accepted = len(inserted)
+    result.stored_ids = sorted(inserted.values())
+    result.rejected.sort(key=lambda item: item.index)
+    session.flush()
+    _evaluate_alerts(session, station=station, ids=result.stored_ids, now=now)
+    return result
+
+
+def _evaluate_alerts(
+    session: Session, *, station: Station, ids: list[int], now: dt.datetime
+) -> None:
+    """Hand the new readings that passed QC (overall flag not 4) to the alert rules."""
+    if not ids:
+        return
+    from app.alerts.evaluation import evaluate_after_ingest
+
+    readings: list[Reading] = []
+    for chunk in _chunks(ids):
+        readings.extend(
+            session.scalars(
+                select(Reading)
+                .where(Reading.id.in_(chunk), Reading.qc_overall != int(QcFlag.FAIL))
+                .order_by(Reading.observed_at)
+            )
+        )
+    if readings:
+        evaluate_after_ingest(session=session, station=station, readings=readings, now=now)

@@ -1,0 +1,254 @@
+"""Request and response bodies of the readings and chemistry endpoints.
+
+Posted readings are validated one by one (``validate_reading``) so that one bad item is
+reported by its index while the good ones are stored; every message is a sentence that
+names the field and the allowed range.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from collections.abc import Sequence
+from typing import Any, Literal
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
+
+PhScale = Literal["total", "seawater", "free", "nbs"]
+PH_SCALES: tuple[str, ...] = ("total", "seawater", "free", "nbs")
+
+MAX_READINGS_PER_REQUEST = 5000
+# Sensor clocks drift; a reading a few minutes "ahead" is a clock, not a forgery.
+MAX_FUTURE = dt.timedelta(minutes=10)
+
+# The range a posted value may take at all (anything outside is not a measurement of
+# hatchery water and is refused). Temperature, salinity and pH are the chemistry
+# engine's input domain, so every accepted reading can be derived; narrower, per-station
+# plausibility is the job of QC, which keeps the reading and flags it.
+READING_RANGES: dict[str, tuple[float, float, str]] = {
+    "temperature_c": (-2.0, 45.0, " degC"),
+    "salinity": (0.0, 50.0, ""),
+    "ph": (0.0, 14.0, ""),
+    # Design default: from fresh-water-diluted to heavily dosed water, with margin.
+    "alkalinity_umol_kg": (100.0, 10000.0, " umol/kg"),
+    # The same span in the laboratory unit (1 mg/L as CaCO3 is about 19.5 umol/kg).
+    "alkalinity_mg_l_caco3": (5.0, 500.0, " mg/L as CaCO3"),
+}
+
+
+def _range_sentence(name: str) -> str:
+    low, high, unit = READING_RANGES[name]
+    return f"{name} must be a finite number from {low:g} to {high:g}{unit}"
+
+
+class ReadingIn(BaseModel):
+    """One sensor reading as a device or a logger file gives it."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "reading_id": "probe-7-000123",
+                    "observed_at": "2026-06-01T05:00:00-07:00",
+                    "temperature_c": 11.8,
+                    "salinity": 31.2,
+                    "ph": 7.71,
+                    "ph_scale": "nbs",
+                    "alkalinity_umol_kg": 2150,
+                }
+            ]
+        },
+    )
+
+    reading_id: str | None = Field(
+        default=None,
+        min_length=1,
+        max_length=128,
+        description="The sensor's own id for this reading; a retry with the same id is a "
+        "duplicate.",
+    )
+    observed_at: dt.datetime = Field(
+        description="ISO 8601 time with a UTC offset, at most 10 minutes in the future."
+    )
+    temperature_c: float | None = Field(default=None, description="degC, -2 to 45.")
+    salinity: float | None = Field(default=None, description="Practical salinity, 0 to 50.")
+    ph: float | None = Field(default=None, description="pH on ph_scale, 0 to 14.")
+    ph_scale: PhScale | None = Field(
+        default=None, description="Scale of ph: total, seawater, free or nbs (glass electrode)."
+    )
+    alkalinity_umol_kg: float | None = Field(
+        default=None, description="Total alkalinity, umol/kg, 100 to 10000."
+    )
+    alkalinity_mg_l_caco3: float | None = Field(
+        default=None, description="Total alkalinity, mg/L as CaCO3, 5 to 500."
+    )
+
+    @field_validator("observed_at", mode="before")
+    @classmethod
+    def _text_time(cls, value: Any) -> Any:
+        if not isinstance(value, str | dt.datetime):
+            raise ValueError(
+                "observed_at must be an ISO 8601 time with a UTC offset, "
+                "e.g. 2026-06-01T05:00:00-07:00"
+            )
+        return value
+
+    @field_validator("observed_at")
+    @classmethod
+    def _aware_and_not_ahead(cls, value: dt.datetime, info: ValidationInfo) -> dt.datetime:
+        if value.tzinfo is None or value.utcoffset() is None:
+            raise ValueError(
+                "observed_at has no UTC offset; send e.g. 2026-06-01T05:00:00-07:00 or "
+                "2026-06-01T12:00:00Z"
+            )
+        now = (info.context or {}).get("now")
+        if now is not None and value - now > MAX_FUTURE:
+            raise ValueError(
+                f"observed_at {value.isoformat()} is more than 10 minutes in the future "
+                f"(server time {now.astimezone(dt.UTC).isoformat(timespec='seconds')}); "
+                "check the sensor's clock"
+            )
+        return value.astimezone(dt.UTC)
+
+    @field_validator(
+        "temperature_c", "salinity", "ph", "alkalinity_umol_kg", "alkalinity_mg_l_caco3"
+    )
+    @classmethod
+    def _finite_in_range(cls, value: float | None, info: ValidationInfo) -> float | None:
+        if value is None:
+            return None
+        low, high, _unit = READING_RANGES[info.field_name]
+        if not math.isfinite(value) or not low <= value <= high:
+            raise ValueError(f"{_range_sentence(info.field_name)}; got {value}")
+        return value
+
+    @model_validator(mode="after")
+    def _consistent(self) -> ReadingIn:
+        if self.alkalinity_umol_kg is not None and self.alkalinity_mg_l_caco3 is not None:
+            raise ValueError("give alkalinity_umol_kg or alkalinity_mg_l_caco3, not both")
+        if self.ph is not None and self.ph_scale is None:
+            raise ValueError(f"ph_scale is required with ph; one of {', '.join(PH_SCALES)}")
+        if self.temperature_c is None and self.salinity is None and self.ph is None:
+            raise ValueError("a reading needs at least one of temperature_c, salinity or ph")
+        if self.alkalinity_mg_l_caco3 is not None and (
+            self.temperature_c is None or self.salinity is None
+        ):
+            raise ValueError(
+                "alkalinity_mg_l_caco3 needs temperature_c and salinity to convert to umol/kg"
+            )
+        return self
+
+
+def _sentence(error: dict[str, Any]) -> str:
+    location = ".".join(str(part) for part in error.get("loc", ()))
+    message = str(error.get("msg", "invalid value"))
+    if message.startswith("Value error, "):
+        # Our own validators already name the field.
+        return message.removeprefix("Value error, ")
+    if error.get("type") == "extra_forbidden":
+        return f"{location} is not a reading field"
+    if error.get("type") == "missing":
+        return f"{location} is required"
+    if location in READING_RANGES:
+        return f"{_range_sentence(location)}; {message[0].lower()}{message[1:]}"
+    if location == "ph_scale":
+        return f"ph_scale must be one of {', '.join(PH_SCALES)}"
+    return f"{location}: {message}" if location else message
+
+
+def validate_reading(item: Any, *, now: dt.datetime) -> ReadingIn | list[str]:
+    """The validated reading, or the list of sentences saying what is wrong with it."""
+    if not isinstance(item, dict):
+        return ["each reading must be a JSON object"]
+    try:
+        return ReadingIn.model_validate(item, context={"now": now})
+    except ValidationError as error:
+        return [_sentence(e) for e in error.errors()]
+
+
+def readings_from_body(payload: Any) -> list[Any]:
+    """The list of raw items in a posted body: ``{"readings": [...]}`` or one reading.
+
+    Raises ``ValueError`` with a sentence when the body's shape is wrong as a whole.
+    """
+    if isinstance(payload, dict) and "readings" in payload:
+        extra = sorted(set(payload) - {"readings"})
+        if extra:
+            raise ValueError(
+                f"the body has fields {', '.join(extra)} beside readings; send "
+                '{"readings": [...]} or one reading object'
+            )
+        items = payload["readings"]
+        if not isinstance(items, list):
+            raise ValueError("readings must be a list of reading objects")
+    elif isinstance(payload, dict):
+        items = [payload]
+    else:
+        raise ValueError('the body must be {"readings": [...]} or one reading object')
+    if not 1 <= len(items) <= MAX_READINGS_PER_REQUEST:
+        raise ValueError(
+            f"readings must hold 1 to {MAX_READINGS_PER_REQUEST} items; got {len(items)}"
+        )
+    return items
+
+
+class ReadingBatchIn(BaseModel):
+    """The documented body of ``POST /readings`` (a single reading object is accepted too)."""
+
+    readings: list[ReadingIn] = Field(min_length=1, max_length=MAX_READINGS_PER_REQUEST)
+
+
+class RejectedItem(BaseModel):
+    index: int = Field(description="Position of the item in the posted list, from 0.")
+    errors: list[str]
+
+
+class IngestSummary(BaseModel):
+    accepted: int = Field(description="Readings stored by this request.")
+    duplicates: int = Field(description="Readings already stored with the same values.")
+    rejected: list[RejectedItem]
+
+
+class ReadingPublic(BaseModel):
+    """A stored reading: raw values, the chemistry derived from them and the QC flags."""
+
+    model_config = ConfigDict(from_attributes=True)
+
+    observed_at: dt.datetime
+    received_at: dt.datetime
+    source: str
+    reading_id: str | None
+    temperature_c: float | None
+    salinity: float | None
+    ph: float | None
+    ph_scale: str | None
+    alkalinity_input_umol_kg: float | None
+    alkalinity_used_umol_kg: float | None
+    alkalinity_source: str | None
+    ph_total: float | None
+    dic_umol_kg: float | None
+    pco2_uatm: float | None
+    carbonate_umol_kg: float | None
+    omega_aragonite: float | None
+    omega_calcite: float | None
+    omega_aragonite_uncertainty: float | None
+    qc_temperature: int
+    qc_salinity: int
+    qc_ph: int
+    qc_alkalinity: int
+    qc_derived: int
+    qc_overall: int
+    chemistry_version: str | None
+
+
+def column_names(model: type[BaseModel]) -> Sequence[str]:
+    return tuple(model.model_fields)
