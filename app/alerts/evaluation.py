@@ -35,6 +35,22 @@ from app.sites.models import Site, Station, Tank
 logger = logging.getLogger(__name__)
 
 QC_FAIL = 4
+# Rules evaluated here; other metrics (for example bottle-sample checks) have their own path.
+INGEST_METRICS = frozenset(
+    {
+        "tank_omega_aragonite",
+        "omega_aragonite",
+        "ph_total",
+        "pco2_uatm",
+        "temperature_c",
+        "salinity",
+        "no_data",
+        "qc_failed",
+    }
+)
+# The sweep looks at these at every cycle: silence, and a failed latest reading (the ingest
+# hands failed readings to no rule, and a batch of only failed readings to none at all).
+SWEEP_METRICS = ("no_data", "qc_failed")
 READING_COLUMN = {
     "omega_aragonite": "omega_aragonite",
     "ph_total": "ph_total",
@@ -331,6 +347,8 @@ def evaluate_after_ingest(
     ordered = sorted(readings, key=lambda r: r.observed_at)
     latest = None
     for rule, tank in rules:
+        if rule.metric not in INGEST_METRICS:
+            continue  # e.g. bottle-sample rules, evaluated where their data arrives
         ctx = RuleContext(session, site, rule, tank, station, now)
         if rule.metric == "no_data":
             if latest is None:
@@ -357,7 +375,7 @@ def sweep(*, session: Session, now: dt.datetime) -> int:
                 AlertRule.enabled.is_(True),
                 AlertRule.deleted_at.is_(None),
                 or_(
-                    AlertRule.metric == "no_data",
+                    AlertRule.metric.in_(SWEEP_METRICS),
                     (AlertRule.repeat_minutes > 0) & AlertRule.id.in_(has_open_alert),
                 ),
             )
@@ -376,6 +394,15 @@ def sweep(*, session: Session, now: dt.datetime) -> int:
             apply_observations(
                 ctx, [no_data_observation(rule, _latest_observed_at(session, station_pk), now)]
             )
+        elif rule.metric == "qc_failed":
+            latest = session.scalars(
+                select(Reading)
+                .where(Reading.station_pk == station_pk)
+                .order_by(Reading.observed_at.desc())
+                .limit(1)
+            ).first()
+            if latest is not None:
+                apply_observations(ctx, _value_observations(site, rule, tank, station, [latest]))
         alert = open_alert(session=session, rule_id=rule.id)
         if alert is not None and rule.repeat_minutes > 0:
             result = sm.tick(thresholds_of(rule), _machine_state(rule, alert), now)

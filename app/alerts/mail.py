@@ -31,6 +31,7 @@ METRIC_WORDS = {
     "qc_failed": ("QC flag", ""),
     "sensor_drift": ("pH sensor offset from the latest bottle sample (size)", ""),
 }
+GENERIC_METRIC_WORDS = ("value", "")
 KIND_WORDS = {"raised": "ALERT", "reminder": "STILL ACTIVE", "cleared": "CLEARED"}
 
 
@@ -48,7 +49,7 @@ def _local(moment: dt.datetime | None, site: Site) -> str:
 def _value(metric: str, value: float | None, uncertainty: float | None = None) -> str:
     if value is None:
         return "-"
-    unit = METRIC_WORDS[metric][1]
+    unit = METRIC_WORDS.get(metric, GENERIC_METRIC_WORDS)[1]
     digits = 0 if metric in ("no_data", "qc_failed", "pco2_uatm") else 2
     text = f"{value:.{digits}f}"
     if uncertainty is not None:
@@ -57,7 +58,7 @@ def _value(metric: str, value: float | None, uncertainty: float | None = None) -
 
 
 def _condition(rule: AlertRule) -> str:
-    words, unit = METRIC_WORDS[rule.metric]
+    words, unit = METRIC_WORDS.get(rule.metric, (rule.metric.replace("_", " "), ""))
     if rule.metric == "no_data":
         return f"no reading for more than {rule.level:g} minutes"
     if rule.metric == "qc_failed":
@@ -117,7 +118,7 @@ def compose_alert_message(
 ) -> tuple[str, str, str]:
     """Subject, plain text and HTML of one alert notification."""
     place = f"tank {tank.name}" if tank is not None else f"station {station.name}"
-    words = METRIC_WORDS[rule.metric][0]
+    words = METRIC_WORDS.get(rule.metric, (rule.metric.replace("_", " "), ""))[0]
     subject = f"[{site.name}] {KIND_WORDS[kind]}: {words}, {place}"
     lines = [
         f"Site: {site.name} ({site.id})",

@@ -48,17 +48,26 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 def _serve(args: argparse.Namespace) -> int:
     import uvicorn
 
-    load_settings()  # fail here, with the reason, rather than inside every worker
+    settings = load_settings()  # fail here, with the reason, rather than inside every worker
     if args.workers < 1:
         sys.exit("spatline serve: --workers must be 1 or more")
-    uvicorn.run(
-        "app.main:create_app",
-        factory=True,
-        host=args.host,
-        port=args.port,
-        workers=args.workers,
-        proxy_headers=True,
-    )
+    stop_worker = None
+    if settings.run_worker_in_serve:
+        from app.cli.worker import start_background_worker
+
+        stop_worker = start_background_worker(settings)
+    try:
+        uvicorn.run(
+            "app.main:create_app",
+            factory=True,
+            host=args.host,
+            port=args.port,
+            workers=args.workers,
+            proxy_headers=True,
+        )
+    finally:
+        if stop_worker is not None:
+            stop_worker()
     return 0
 
 
