@@ -14,8 +14,7 @@ import re
 from collections.abc import Iterable, Iterator, Sequence
 from typing import Any
 
-from sqlalchemy import ColumnElement, case, cast, func, literal_column, select
-from sqlalchemy import Integer as SqlInteger
+from sqlalchemy import BigInteger, ColumnElement, case, cast, func, literal_column, select
 from sqlalchemy.orm import Session
 
 from app.readings.models import Reading
@@ -115,8 +114,8 @@ def raw_readings(
 def _epoch_seconds(session: Session) -> ColumnElement[Any]:
     if session.get_bind().dialect.name == "sqlite":
         # UtcDateTime keeps naive UTC text on SQLite, which strftime reads as UTC.
-        return cast(func.strftime("%s", Reading.observed_at), SqlInteger)
-    return cast(func.floor(func.extract("epoch", Reading.observed_at)), SqlInteger)
+        return cast(func.strftime("%s", Reading.observed_at), BigInteger)
+    return cast(func.floor(func.extract("epoch", Reading.observed_at)), BigInteger)
 
 
 def aggregated_readings(
@@ -134,8 +133,8 @@ def aggregated_readings(
     """
     step = int(every.total_seconds())
     # Inline (an int we made): PostgreSQL's GROUP BY must see the same text as the SELECT,
-    # and two bound parameters would not be the same text.
-    bucket = (_epoch_seconds(session) / literal_column(str(step), SqlInteger)).label("bucket")
+    # and two bound parameters would not be the same text. ``//`` is integer division.
+    bucket = (_epoch_seconds(session) // literal_column(str(step), BigInteger)).label("bucket")
     good = Reading.qc_overall != int(QcFlag.FAIL)
     columns: list[Any] = [
         bucket,
