@@ -319,3 +319,18 @@ def test_mix_is_linear_in_alkalinity_and_dic_not_in_saturation():
     with pytest.raises(ChemistryInputError, match="same constants"):
         mix([river, solve(temperature=14.0, salinity=34.0, alkalinity=2300.0, dic=2050.0)],
             [0.5, 0.5])
+
+
+def test_long_arrays_are_solved_in_slices_with_global_indices():
+    # Arrays longer than one internal slice: results equal single solves and an error names
+    # the index in the caller's array, not in the slice.
+    temperatures = np.linspace(0.0, 40.0, 20000)
+    many = solve(temperature=temperatures, salinity=35.0, alkalinity=2300.0, dic=2000.0)
+    one = solve(temperature=float(temperatures[12345]), salinity=35.0, alkalinity=2300.0,
+                dic=2000.0)
+    assert float(many.ph_total[12345]) == pytest.approx(float(one.ph_total), abs=1e-12)
+    dic = np.full((2, 10000), 2000.0)
+    dic[1, 5000] = 5.0
+    with pytest.raises(ChemistryInputError, match=r"index \(1, 5000\)") as caught:
+        solve(temperature=12.0, salinity=31.0, dic=dic, pco2=1000.0)
+    assert caught.value.index == (1, 5000)
