@@ -158,3 +158,81 @@ def test_header_water_is_warm_and_dosed_and_its_station_line_matches(
     line_alkalinity = simulator.alkalinity_on_line(header.salinity, header_line)
     # Only the salinity sensor's noise (0.03 x 48 umol/kg) separates the line from the water.
     assert np.percentile(np.abs(line_alkalinity - header.alkalinity), 95) < 5.0
+
+
+def test_cli_default_seed_is_the_simulator_default() -> None:
+    from app.cli import demo as demo_command
+
+    assert demo_command.DEFAULT_SEED == simulator.DEFAULT_SEED
+
+
+def _count(engine, table) -> int:
+    from sqlalchemy import func, select
+
+    with engine.connect() as connection:
+        return connection.scalar(select(func.count()).select_from(table))
+
+
+@pytest.mark.db
+def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
+    tmp_path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """Runs the real command (migrations included) on its own SQLite file, twice."""
+    import re
+
+    from sqlalchemy import select
+
+    from app.auth.keys import hash_key
+    from app.auth.models import ApiKey
+    from app.cli import main
+    from app.db import make_engine
+    from app.readings.models import Reading
+    from app.settings import Settings
+    from app.sites.models import Device, Site, Station, Tank
+
+    monkeypatch.setenv("SPATLINE_DATABASE_URL", f"sqlite:///{tmp_path / 'demo.db'}")
+    monkeypatch.setenv("SPATLINE_ENVIRONMENT", "development")
+    monkeypatch.delenv("SPATLINE_SECRET_KEY", raising=False)
+    started = datetime.now(UTC)
+
+    assert main(["demo"]) == 0
+    first = capsys.readouterr().out
+    admin_key = re.search(r"admin key \(configure\): (\S+)", first).group(1)
+    viewer_key = re.search(r"viewer key \(read\): +(\S+)", first).group(1)
+    assert "http://127.0.0.1:8000/docs" in first
+
+    engine = make_engine(Settings(_env_file=None))
+    try:
+        assert _count(engine, Site) == 1
+        assert _count(engine, Station) == 2
+        assert _count(engine, Tank) == len(scenario.TANKS) == 4
+        assert _count(engine, Device) == 2
+        assert _count(engine, Reading) == 2 * READINGS_PER_WEEK
+        with engine.connect() as connection:
+            derived = connection.scalars(select(Reading.omega_aragonite)).all()
+            stored_keys = {
+                row.key_hash: row for row in connection.execute(select(ApiKey)).all()
+            }
+        # Every simulated reading is physical: the ingest derived chemistry for all of them.
+        assert all(value is not None for value in derived)
+        assert stored_keys[hash_key(admin_key)].role == "admin"
+        assert stored_keys[hash_key(viewer_key)].role == "viewer"
+
+        assert main(["demo"]) == 0
+        second = capsys.readouterr().out
+        assert "already exists" in second
+        assert _count(engine, Site) == 1
+        assert _count(engine, Station) == 2
+        assert _count(engine, Tank) == 4
+        assert _count(engine, Device) == 2
+        # Only readings newer than the first run's last one may be added.
+        elapsed_steps = (datetime.now(UTC) - started) // timedelta(minutes=5) + 1
+        added = _count(engine, Reading) - 2 * READINGS_PER_WEEK
+        assert 0 <= added <= 2 * elapsed_steps
+        with engine.connect() as connection:
+            old_admin = connection.execute(
+                select(ApiKey.revoked_at).where(ApiKey.key_hash == hash_key(admin_key))
+            ).scalar_one()
+        assert old_admin is not None
+    finally:
+        engine.dispose()
