@@ -83,6 +83,8 @@ def _rules_for_station(
         )
         .order_by(AlertRule.id)
         .with_for_update(skip_locked=skip_locked)
+        # Locked rows are read afresh: another transaction may have just changed them.
+        .execution_options(populate_existing=True)
     )
     rules = list(session.scalars(query))
     return [(rule, session.get(Tank, rule.tank_pk) if rule.tank_pk else None) for rule in rules]
@@ -381,6 +383,7 @@ def sweep(*, session: Session, now: dt.datetime) -> int:
             )
             .order_by(AlertRule.id)
             .with_for_update(skip_locked=True)
+            .execution_options(populate_existing=True)
         )
     )
     handled = 0

@@ -212,10 +212,12 @@ def get_rule(*, session: Session, site_id: str, rule_id: int) -> AlertRule:
 
 def open_alert(*, session: Session, rule_id: int) -> Alert | None:
     return session.scalars(
-        select(Alert).where(
+        select(Alert)
+        .where(
             Alert.rule_id == rule_id,
             Alert.state.in_([s.value for s in sm.OPEN_ALERT_STATES]),
         )
+        .execution_options(populate_existing=True)
     ).first()
 
 
