@@ -415,6 +415,12 @@ def _h_from_alkalinity_dic(alkalinity, dic, water, scalar):
         )
     with np.errstate(divide="ignore", invalid="ignore"):
         h0 = (b + np.sqrt(disc)) / (2.0 * carbonate_alk)
+        # One refinement: borate and water at the first estimate instead of at pH 8.
+        noncarb, _ = water.noncarbonate(np.where(h0 > 0, h0, 1e-8))
+        carbonate_alk = alkalinity - noncarb
+        b = (dic - carbonate_alk) * k1
+        disc = b * b - 4.0 * carbonate_alk * (carbonate_alk - 2.0 * dic) * water.k1k2
+        h0 = np.where(h0 > 0, (b + np.sqrt(disc)) / (2.0 * carbonate_alk), h0)
     return _newton_array(_alkalinity_at_dic, alkalinity, h0, h_low, h_high, water, (dic,))
 
 
