@@ -1,20 +1,21 @@
 # The Spatline service image: the API, migrations applied at start.
 FROM python:3.11-slim
 
+# PYTHONPATH: the app is imported from this source tree, so that alembic.ini and every
+# file of migrations/ (versions/ is not a Python package, so not installed) sit beside it.
 ENV PYTHONDONTWRITEBYTECODE=1 \
     PYTHONUNBUFFERED=1 \
     PIP_NO_CACHE_DIR=1 \
-    PIP_DISABLE_PIP_VERSION_CHECK=1
+    PIP_DISABLE_PIP_VERSION_CHECK=1 \
+    PYTHONPATH=/srv/spatline
 
 WORKDIR /srv/spatline
 
-# Dependencies first, so that a code change does not reinstall them.
-COPY pyproject.toml README.md ./
+COPY pyproject.toml README.md alembic.ini ./
 COPY app ./app
 COPY chemistry ./chemistry
 COPY demo ./demo
 COPY migrations ./migrations
-COPY alembic.ini ./
 RUN pip install . \
     && useradd --create-home --uid 10001 spatline \
     && mkdir -p var \
