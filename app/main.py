@@ -18,6 +18,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.db import make_engine, make_sessionmaker, read_only_engine
 from app.settings import Settings
+from app.web import install as install_web_pages
 
 logger = logging.getLogger(__name__)
 
@@ -170,6 +171,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     for module_name in ROUTER_MODULES:
         module = importlib.import_module(module_name)
         app.include_router(module.router, prefix=API_PREFIX)
+    install_web_pages(app, settings)
     return app
 
 
