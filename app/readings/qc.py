@@ -683,7 +683,10 @@ def run_qc(
         overall=back(overall),
         tests={
             name: VariableQc(
-                back(v.gross_range), back(v.spike), back(v.rate_of_change), back(v.flat_line),
+                back(v.gross_range),
+                back(v.spike),
+                back(v.rate_of_change),
+                back(v.flat_line),
                 back(v.flag),
             )
             for name, v in per_variable.items()

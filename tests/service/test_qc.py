@@ -83,14 +83,24 @@ class TestSpike:
         )
         # Index 2: height 2 (suspect); index 5: height 4.5 (fail). Ends lack a neighbour.
         assert flags.tolist() == [
-            NOT_EVALUATED, PASS, SUSPECT, PASS, SUSPECT, FAIL, SUSPECT, NOT_EVALUATED
+            NOT_EVALUATED,
+            PASS,
+            SUSPECT,
+            PASS,
+            SUSPECT,
+            FAIL,
+            SUSPECT,
+            NOT_EVALUATED,
         ]
 
     def test_reference_is_the_mean_of_the_neighbours(self):
         # A steady ramp has zero spike height under SPK_REF = mean of the neighbours,
         # although each step (1.0) exceeds the suspect threshold.
         flags = spike_test(
-            minutes(5), [0.0, 1.0, 2.0, 3.0, 4.0], suspect_threshold=0.5, fail_threshold=2.0,
+            minutes(5),
+            [0.0, 1.0, 2.0, 3.0, 4.0],
+            suspect_threshold=0.5,
+            fail_threshold=2.0,
             max_gap_s=3600,
         )
         assert flags[1:-1].tolist() == [PASS, PASS, PASS]
@@ -104,7 +114,10 @@ class TestSpike:
 
     def test_missing_neighbour_is_skipped(self):
         flags = spike_test(
-            minutes(4), [10.0, np.nan, 14.0, 10.0], suspect_threshold=1.0, fail_threshold=3.0,
+            minutes(4),
+            [10.0, np.nan, 14.0, 10.0],
+            suspect_threshold=1.0,
+            fail_threshold=3.0,
             max_gap_s=3600,
         )
         assert flags.tolist() == [NOT_EVALUATED, MISSING, FAIL, NOT_EVALUATED]
@@ -126,7 +139,12 @@ class TestRateOfChange:
         sd = np.std(values[(times >= times[-1] - 25 * 3600) & (times < times[-1])], ddof=1)
         assert 3 * sd < 0.2
         flags = rate_of_change_test(
-            times, values, deviations=3.0, window_s=25 * 3600, min_points=10, min_step=0.0,
+            times,
+            values,
+            deviations=3.0,
+            window_s=25 * 3600,
+            min_points=10,
+            min_step=0.0,
             max_gap_s=3600,
         )
         assert flags[-1] == SUSPECT
@@ -138,15 +156,25 @@ class TestRateOfChange:
         sd = np.std(values[window], ddof=1)
         values[-1] = values[-2] + 2.5 * sd
         flags = rate_of_change_test(
-            times, values, deviations=3.0, window_s=25 * 3600, min_points=10, min_step=0.0,
+            times,
+            values,
+            deviations=3.0,
+            window_s=25 * 3600,
+            min_points=10,
+            min_step=0.0,
             max_gap_s=3600,
         )
         assert flags[-1] == PASS
 
     def test_too_little_history_is_not_evaluated(self):
         flags = rate_of_change_test(
-            minutes(5), [8.0, 8.0, 8.0, 8.0, 9.0], deviations=3.0, window_s=25 * 3600,
-            min_points=10, min_step=0.0, max_gap_s=3600,
+            minutes(5),
+            [8.0, 8.0, 8.0, 8.0, 9.0],
+            deviations=3.0,
+            window_s=25 * 3600,
+            min_points=10,
+            min_step=0.0,
+            max_gap_s=3600,
         )
         assert flags.tolist() == [NOT_EVALUATED] * 5
 
@@ -156,8 +184,13 @@ class TestRateOfChange:
         values = np.full(40, 8.0)
         values[-1] = 8.01
         flags = rate_of_change_test(
-            minutes(40), values, deviations=3.0, window_s=25 * 3600, min_points=10,
-            min_step=0.02, max_gap_s=3600,
+            minutes(40),
+            values,
+            deviations=3.0,
+            window_s=25 * 3600,
+            min_points=10,
+            min_step=0.02,
+            max_gap_s=3600,
         )
         assert flags[-1] == PASS
 
@@ -170,8 +203,16 @@ class TestFlatLine:
         flags = flat_line_test(values, suspect_count=3, fail_count=5, tolerance=1e-6)
         # Index 6 repeats the three before it; index 8 the five before it.
         assert flags.tolist() == [
-            NOT_EVALUATED, NOT_EVALUATED, NOT_EVALUATED, PASS, PASS, PASS, SUSPECT, SUSPECT,
-            FAIL, PASS,
+            NOT_EVALUATED,
+            NOT_EVALUATED,
+            NOT_EVALUATED,
+            PASS,
+            PASS,
+            PASS,
+            SUSPECT,
+            SUSPECT,
+            FAIL,
+            PASS,
         ]
 
     def test_differences_inside_tolerance_count_as_the_same(self):
