@@ -114,8 +114,9 @@ class _PortalASGITransport(httpx.BaseTransport):
         self._portal = portal
 
     def handle_request(self, request: httpx.Request) -> httpx.Response:
+        body = request.read()
+
         async def send() -> tuple[int, httpx.Headers, bytes]:
-            body = await request.aread()
             async_request = httpx.Request(
                 request.method, request.url, headers=request.headers, content=body
             )

@@ -6,6 +6,7 @@ may not do this.
 
 from __future__ import annotations
 
+import logging
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Annotated
@@ -16,6 +17,9 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from app.auth.keys import ROLES, find_active_key, needs_touch, touch_key
 from app.db import SessionDep, utcnow
 from app.sites.models import Device
+
+# Log lines name keys by id, never by any part of the secret.
+logger = logging.getLogger(__name__)
 
 bearer_scheme = HTTPBearer(
     auto_error=False,
@@ -51,11 +55,13 @@ def authenticate(
         raise _unauthorized("An API key is required: send 'Authorization: Bearer <key>'.")
     api_key = find_active_key(session=session, plaintext=credentials.credentials)
     if api_key is None:
+        logger.info("refused a request with an unknown or revoked API key")
         raise _unauthorized("The API key is unknown or has been revoked.")
     principal = Principal(role=api_key.role, key_id=api_key.id, label=api_key.label)
     if api_key.device_id is not None:
         device = session.get(Device, api_key.device_id)
         if device is None or device.revoked_at is not None:
+            logger.info("refused API key %d: its device is revoked", api_key.id)
             raise _unauthorized("The device of this API key has been revoked.")
         principal = Principal(
             role=api_key.role,
@@ -83,6 +89,9 @@ def require_role(*roles: str) -> Callable[..., Principal]:
 
     def dependency(principal: Annotated[Principal, Depends(authenticate)]) -> Principal:
         if principal.role not in roles:
+            logger.info(
+                "refused API key %d (%s): needs %s", principal.key_id, principal.role, allowed
+            )
             raise HTTPException(
                 status_code=status.HTTP_403_FORBIDDEN,
                 detail=f"A key with role '{principal.role}' may not do this; "

@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import hmac
+import logging
 import secrets
 
 from sqlalchemy import select, update
@@ -21,6 +22,8 @@ from app.db import utcnow
 KEY_PREFIX = "spl_"
 KEY_RANDOM_BYTES = 32
 ROLES = ("admin", "viewer", "device")
+logger = logging.getLogger(__name__)
+
 # Writing last_used_at on every request would turn every read into a write.
 LAST_USED_RESOLUTION = dt.timedelta(minutes=1)
 
@@ -52,6 +55,13 @@ def create_key(
     )
     session.add(api_key)
     session.flush()
+    logger.info(
+        "created %s API key %d (%s)%s",
+        role,
+        api_key.id,
+        label,
+        f" for device {device_id}" if device_id else "",
+    )
     return api_key, plaintext
 
 
@@ -88,6 +98,7 @@ def revoke_key(*, session: Session, key_id: int) -> ApiKey | None:
         return None
     if api_key.revoked_at is None:
         api_key.revoked_at = utcnow()
+        logger.info("revoked API key %d (%s)", api_key.id, api_key.label)
     return api_key
 
 
