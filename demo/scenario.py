@@ -99,5 +99,8 @@ TANKS: list[dict[str, Any]] = [
     },
 ]
 
+# Who gets the demo's alert mail: an address under a reserved example domain (RFC 2606).
+ALERT_RECIPIENTS: list[str] = ["manager@orrowen-bay.example"]
+
 ADMIN_KEY_LABEL = "demo admin"
 VIEWER_KEY_LABEL = "demo viewer"

@@ -182,6 +182,7 @@ def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
 
     from sqlalchemy import select
 
+    from app.alerts.models import AlertRule
     from app.auth.keys import hash_key
     from app.auth.models import ApiKey
     from app.cli import main
@@ -217,6 +218,10 @@ def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
         assert all(value is not None for value in derived)
         assert stored_keys[hash_key(admin_key)].role == "admin"
         assert stored_keys[hash_key(viewer_key)].role == "viewer"
+        with engine.connect() as connection:
+            recipients = connection.scalars(select(AlertRule.recipients)).all()
+        assert recipients  # every tank got its default rules
+        assert all(value == scenario.ALERT_RECIPIENTS for value in recipients)
 
         assert main(["demo"]) == 0
         second = capsys.readouterr().out

@@ -107,6 +107,7 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
         ]
         for definition in scenario.TANKS:
             service.create_tank(session=session, site=site, data=TankCreate(**definition))
+        _address_default_rules(session, site_id=site.id)
         devices = {
             station.id: service.create_device(session=session, station=station, label=DEVICE_LABEL)
             for station in stations
@@ -158,6 +159,17 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
         ]
     )
     return lines
+
+
+def _address_default_rules(session: Session, *, site_id: str) -> None:
+    """Send the tanks' default alert rules to the demo manager's (example) address."""
+    from app.alerts.rules import list_rules, update_rule
+    from app.alerts.schemas import AlertRuleUpdate
+    from demo import scenario
+
+    recipients = AlertRuleUpdate(recipients=scenario.ALERT_RECIPIENTS)
+    for rule in list_rules(session=session, site_id=site_id):
+        update_rule(session=session, rule=rule, data=recipients)
 
 
 def _demo_device_id(session: Session, station: Station) -> str | None:
