@@ -72,10 +72,11 @@ def omega_week_svg(
 ) -> str:
     """Return an SVG document: omega aragonite in situ and at tank temperature, with floors.
 
-    Sized for a phone held upright (wide, short, large type); the SVG scales to its box.
+    Sized for a phone held upright (large type on a 6-inch-wide figure, which a phone
+    shows at about half size); the SVG scales to its box.
     """
     zone = ZoneInfo(timezone)
-    fig = Figure(figsize=(8.0, 4.4), dpi=100)
+    fig = Figure(figsize=(6.0, 4.8), dpi=100)
     FigureCanvasSVG(fig)
     ax = fig.add_subplot(1, 1, 1)
     ax.axhspan(0.0, 1.0, color=UNDERSATURATED_FILL, zorder=0, linewidth=0)
@@ -92,15 +93,15 @@ def omega_week_svg(
 
     ax.set_xlim(_utc64(start)[0], _utc64(end)[0])
     ax.set_ylim(bottom=0.0)
-    ax.set_ylabel("Ω aragonite", fontsize=13)
-    ax.set_title(title, fontsize=14, loc="left")
+    ax.set_ylabel("Ω aragonite", fontsize=16)
+    ax.set_title(title, fontsize=15, loc="left")
     ax.xaxis.set_major_locator(mdates.DayLocator(tz=zone))
-    ax.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=zone))
-    ax.tick_params(labelsize=12)
+    ax.xaxis.set_major_formatter(mdates.DateFormatter("%a", tz=zone))
+    ax.tick_params(labelsize=14)
     ax.grid(True, color="#d9dee3", linewidth=0.8)
     # Below the axes, so that it never hides a week's worth of data.
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), fontsize=11, frameon=False,
-              ncol=3)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), fontsize=13, frameon=False,
+              ncol=2)
     fig.tight_layout()
 
     buffer = io.StringIO()
