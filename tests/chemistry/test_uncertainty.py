@@ -1,0 +1,140 @@
+"""Standard uncertainty by linear propagation, and the probability helper."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from chemistry import (
+    ORR2018_CONSTANT_UNCERTAINTIES,
+    ChemistryInputError,
+    at_temperature,
+    probability_below,
+    solve,
+    standard_uncertainty,
+)
+
+# Cool, slightly undersaturated-looking intake water: omega aragonite about 1.1 at 12 deg C.
+WATER = {"temperature": 12.0, "salinity": 31.0, "ph": 7.78, "alkalinity": 2150.0}
+
+
+def test_orr2018_defaults():
+    # Orr et al. 2018 (Marine Chemistry 207) table of standard uncertainties of the constants.
+    assert dict(ORR2018_CONSTANT_UNCERTAINTIES) == {
+        "pK0": 0.002,
+        "pK1": 0.0075,
+        "pK2": 0.015,
+        "pKB": 0.01,
+        "pKW": 0.01,
+        "pKsp_aragonite": 0.02,
+        "pKsp_calcite": 0.02,
+        "total_boron": 0.02,
+    }
+
+
+def test_ph_uncertainty_gives_about_ten_to_twelve_percent_in_omega():
+    # Issue 2 expectation: u(pH) = 0.05 near omega 1.1 at 12 deg C gives a
+    # relative standard uncertainty of omega of about 10-12 %.
+    state = solve(**WATER)
+    assert float(state.omega_aragonite) == pytest.approx(1.1, abs=0.1)
+    u = standard_uncertainty(**WATER, u_ph=0.05, constant_uncertainties=None)
+    relative = float(u["omega_aragonite"] / state.omega_aragonite)
+    assert 0.10 <= relative <= 0.12
+
+
+def test_linear_propagation_agrees_with_monte_carlo():
+    # Independent check: draw pH and alkalinity from normal distributions
+    # (fixed seed) and take the sample standard deviation of the outputs.
+    u = standard_uncertainty(**WATER, u_ph=0.02, u_alkalinity=5.0, constant_uncertainties=None)
+    rng = np.random.default_rng(7)
+    n = 20_000
+    samples = solve(
+        temperature=WATER["temperature"],
+        salinity=WATER["salinity"],
+        ph=rng.normal(WATER["ph"], 0.02, n),
+        alkalinity=rng.normal(WATER["alkalinity"], 5.0, n),
+    )
+    for key in ("omega_aragonite", "dic", "pco2", "carbonate"):
+        monte_carlo = float(np.std(getattr(samples, key), ddof=1))
+        assert float(u[key]) == pytest.approx(monte_carlo, rel=0.03), key
+
+
+def test_ksp_uncertainty_scales_omega_by_ln10():
+    # Omega = [Ca][CO3]/Ksp, so a pKsp uncertainty of 0.02 is a relative
+    # omega uncertainty of ln(10) * 0.02 = 4.61 % and leaves carbonate alone.
+    state = solve(**WATER)
+    u = standard_uncertainty(**WATER, constant_uncertainties={"pKsp_aragonite": 0.02})
+    assert float(u["omega_aragonite"] / state.omega_aragonite) == pytest.approx(
+        math.log(10) * 0.02, rel=1e-3
+    )
+    assert float(u["carbonate"]) == pytest.approx(0.0, abs=1e-9)
+    assert float(u["omega_calcite"]) == pytest.approx(0.0, abs=1e-9)
+
+
+def test_constants_add_to_measurement_uncertainty():
+    measured = standard_uncertainty(**WATER, u_ph=0.05, constant_uncertainties=None)
+    total = standard_uncertainty(**WATER, u_ph=0.05)
+    constants_only = standard_uncertainty(**WATER)
+    # Independent parts add in quadrature.
+    np.testing.assert_allclose(
+        total["omega_aragonite"] ** 2,
+        measured["omega_aragonite"] ** 2 + constants_only["omega_aragonite"] ** 2,
+        rtol=1e-6,
+    )
+    assert constants_only["omega_aragonite"] > 0
+
+
+def test_uncertainty_at_tank_temperature_and_array_shape():
+    ph = np.array([7.7, 7.8, 7.9])
+    u = standard_uncertainty(
+        temperature=12.0,
+        salinity=31.0,
+        ph=ph,
+        alkalinity=2150.0,
+        u_ph=0.05,
+        at_temperature=25.0,
+        constant_uncertainties=None,
+    )
+    assert u["omega_aragonite"].shape == (3,)
+    # Closed system: alkalinity is conserved and was not uncertain.
+    np.testing.assert_allclose(u["alkalinity"], 0.0, atol=1e-9)
+    # Cross-check one element by hand: difference the tank prediction in pH.
+    step = 1e-4
+    high = at_temperature(
+        solve(temperature=12.0, salinity=31.0, ph=7.8 + step, alkalinity=2150.0), 25.0
+    )
+    low = at_temperature(
+        solve(temperature=12.0, salinity=31.0, ph=7.8 - step, alkalinity=2150.0), 25.0
+    )
+    by_hand = abs(float(high.omega_aragonite - low.omega_aragonite)) / (2 * step) * 0.05
+    assert float(u["omega_aragonite"][1]) == pytest.approx(by_hand, rel=1e-3)
+
+
+def test_zero_uncertainty_gives_zero():
+    u = standard_uncertainty(**WATER, constant_uncertainties=None)
+    assert all(np.all(value == 0) for value in u.values())
+    assert "omega_aragonite" in u
+
+
+def test_uncertainty_for_a_parameter_that_is_not_an_input_is_refused():
+    with pytest.raises(ChemistryInputError, match="u_dic"):
+        standard_uncertainty(**WATER, u_dic=5.0)
+    with pytest.raises(ChemistryInputError, match="u_ph"):
+        standard_uncertainty(**WATER, u_ph=-0.01)
+    with pytest.raises(ChemistryInputError, match="unknown key"):
+        standard_uncertainty(**WATER, constant_uncertainties={"pK9": 0.1})
+
+
+def test_probability_below():
+    # Standard normal table: Phi(0) = 0.5, Phi(1) = 0.8413, Phi(-2) = 0.0228.
+    np.testing.assert_allclose(
+        probability_below([1.5, 1.0, 2.5], [0.1, 0.5, 0.5], 1.5),
+        [0.5, 0.8413, 0.0228],
+        atol=1e-4,
+    )
+    # No uncertainty: certain either way.
+    np.testing.assert_array_equal(probability_below([1.2, 1.8], 0.0, 1.5), [1.0, 0.0])
+    with pytest.raises(ChemistryInputError, match="standard_uncertainty"):
+        probability_below(1.0, -0.1, 1.5)
