@@ -30,3 +30,36 @@ __all__ = [
 ]
 
 # --- chem-applied exports (density, units, dosing, uncertainty, fitting) go below this line ---
+from .density import seawater_density  # noqa: E402
+from .dosing import (  # noqa: E402
+    CHEMICALS,
+    DOSING_CAUTION,
+    DoseAdvice,
+    DoseRefusedError,
+    add_chemical,
+    dose_for_target,
+)
+from .fitting import AlkalinitySalinityFit, fit_alkalinity_salinity  # noqa: E402
+from .uncertainty import (  # noqa: E402
+    ORR2018_CONSTANT_UNCERTAINTIES,
+    probability_below,
+    standard_uncertainty,
+)
+from .units import alkalinity_from_mg_per_l_caco3, mg_per_l_caco3_from_alkalinity  # noqa: E402
+
+__all__ += [
+    "CHEMICALS",
+    "DOSING_CAUTION",
+    "ORR2018_CONSTANT_UNCERTAINTIES",
+    "AlkalinitySalinityFit",
+    "DoseAdvice",
+    "DoseRefusedError",
+    "add_chemical",
+    "alkalinity_from_mg_per_l_caco3",
+    "dose_for_target",
+    "fit_alkalinity_salinity",
+    "mg_per_l_caco3_from_alkalinity",
+    "probability_below",
+    "seawater_density",
+    "standard_uncertainty",
+]
