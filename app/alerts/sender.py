@@ -16,6 +16,7 @@ import smtplib
 import socket
 import ssl
 import uuid
+from email import policy as email_policy
 from email.message import EmailMessage
 from email.utils import format_datetime
 
@@ -36,6 +37,9 @@ LEASE_SECONDS = 300
 FIRST_RETRY_SECONDS = 30
 MAX_RETRY_SECONDS = 900
 SMTP_TIMEOUT_SECONDS = 20
+# CRLF line ends as SMTP wants, and no folding of headers under the 998-character limit of
+# RFC 5322, so a long subject or Message-ID reaches the reader on one line.
+MAIL_POLICY = email_policy.SMTP.clone(max_line_length=998)
 BATCH_SIZE = 20
 
 
@@ -46,7 +50,7 @@ def retry_delay(attempts: int) -> dt.timedelta:
 
 
 def build_email(row: OutboxMessage, settings: Settings, *, date: dt.datetime) -> EmailMessage:
-    message = EmailMessage()
+    message = EmailMessage(policy=MAIL_POLICY)
     message["Subject"] = row.subject
     message["From"] = settings.smtp_from
     message["To"] = ", ".join(row.recipients)
