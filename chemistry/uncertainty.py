@@ -61,7 +61,9 @@ _INPUT_STEPS = {
 _PCO2_RELATIVE_STEP = 1e-5
 _CONSTANT_STEP = 1e-5  # pK units, and relative for total boron
 
-_CARBONATE_INPUTS = ("ph", "alkalinity", "dic", "pco2")
+# Perturbed waters solved per call: bounds the memory of the stacked problem
+# (about 1 GB of temporaries at most) for arrays of any length.
+_STACKED_WATERS = 1_000_000
 
 
 def _perturbation_plan(
@@ -84,7 +86,9 @@ def _perturbation_plan(
                 allowed="0 when the parameter is not an input",
             )
         if name == "pco2":
-            step = np.asarray(inputs["pco2"], dtype=np.float64) * _PCO2_RELATIVE_STEP
+            # Relative step, with a floor so that a pCO2 of 0 still gets a difference.
+            pco2 = np.asarray(inputs["pco2"], dtype=np.float64)
+            step = np.maximum(pco2 * _PCO2_RELATIVE_STEP, _PCO2_RELATIVE_STEP)
         else:
             step = np.asarray(_INPUT_STEPS[name])
         plan.append(("input", name, step, u))
@@ -222,37 +226,54 @@ def standard_uncertainty(
 
     rows = 2 * len(plan)  # +step and -step for each parameter
     shape = np.broadcast_shapes(
+        np.shape(base.omega_aragonite),
         *(np.shape(value) for value in given.values()),
-        *(np.shape(options[name]) for name in ("pressure", "phosphate", "silicate")),
         *(np.shape(step) for _, _, step, _ in plan),
         *(np.shape(u) for _, _, _, u in plan),
     )
-    stacked = {
-        name: np.repeat(np.broadcast_to(value, shape)[np.newaxis], rows, axis=0)
-        for name, value in given.items()
-    }
-    constant_shifts: dict[str, np.ndarray] = {}
-    for pair, (kind, name, step, _) in enumerate(plan):
-        plus, minus = 2 * pair, 2 * pair + 1
-        if kind == "input":
-            stacked[name][plus] += step
-            stacked[name][minus] -= step
-        else:
-            shift = np.zeros((rows,) + (1,) * len(shape))
-            shift[plus], shift[minus] = step, -step
-            constant_shifts[name] = shift
-    perturbed = solve(**stacked, **options, constant_shifts=constant_shifts or None)
-    if at_temperature is not None:
-        perturbed = _carry_to_temperature(perturbed, at_temperature)
+    size = int(np.prod(shape))
 
-    variance = {key: np.zeros(shape) for key in base_outputs}
-    perturbed_outputs = perturbed.as_dict()
-    for pair, (_, _, step, u) in enumerate(plan):
-        for key in variance:
-            values = np.asarray(perturbed_outputs[key])
-            derivative = (values[2 * pair] - values[2 * pair + 1]) / (2.0 * step)
-            variance[key] = variance[key] + (derivative * u) ** 2
-    return {key: np.sqrt(value) for key, value in variance.items()}
+    def flat(value: Any) -> np.ndarray:
+        return np.broadcast_to(np.asarray(value, dtype=np.float64), shape).reshape(size)
+
+    flat_given = {name: flat(value) for name, value in given.items()}
+    flat_options = {
+        name: flat(value) if name in ("pressure", "phosphate", "silicate") else value
+        for name, value in options.items()
+    }
+    flat_plan = [(kind, name, flat(step), flat(u)) for kind, name, step, u in plan]
+    flat_tank = None if at_temperature is None else flat(at_temperature)
+
+    variance = {key: np.zeros(size) for key in base_outputs}
+    # Chunks keep the stacked problem near a million waters whatever the input size.
+    chunk = max(1, _STACKED_WATERS // rows)
+    for start in range(0, size, chunk):
+        part = slice(start, min(start + chunk, size))
+        stacked = {name: np.tile(value[part], (rows, 1)) for name, value in flat_given.items()}
+        constant_shifts: dict[str, np.ndarray] = {}
+        for pair, (kind, name, step, _) in enumerate(flat_plan):
+            plus, minus = 2 * pair, 2 * pair + 1
+            if kind == "input":
+                stacked[name][plus] += step[part]
+                stacked[name][minus] -= step[part]
+            else:
+                shift = np.zeros((rows, 1))
+                shift[plus], shift[minus] = step[0], -step[0]
+                constant_shifts[name] = shift
+        part_options = {
+            name: value[part] if isinstance(value, np.ndarray) else value
+            for name, value in flat_options.items()
+        }
+        perturbed = solve(**stacked, **part_options, constant_shifts=constant_shifts or None)
+        if flat_tank is not None:
+            perturbed = _carry_to_temperature(perturbed, flat_tank[part])
+        outputs = perturbed.as_dict()
+        for pair, (_, _, step, u) in enumerate(flat_plan):
+            for key in variance:
+                values = outputs[key]
+                derivative = (values[2 * pair] - values[2 * pair + 1]) / (2.0 * step[part])
+                variance[key][part] += (derivative * u[part]) ** 2
+    return {key: np.sqrt(value).reshape(shape) for key, value in variance.items()}
 
 
 def probability_below(value: Any, standard_uncertainty: Any, level: Any) -> np.ndarray:

@@ -61,6 +61,37 @@ def test_linear_propagation_agrees_with_monte_carlo():
         assert float(u[key]) == pytest.approx(monte_carlo, rel=0.03), key
 
 
+@pytest.mark.parametrize(
+    ("pair", "uncertainties"),
+    [
+        ({"alkalinity": 2150.0, "dic": 2075.0}, {"alkalinity": 4.0, "dic": 4.0}),
+        ({"ph": 7.78, "pco2": 760.0}, {"ph": 0.01, "pco2": 20.0}),
+    ],
+)
+def test_other_pairs_agree_with_monte_carlo(pair, uncertainties):
+    # Same independent check for the implicit (alkalinity, DIC) pair and for (pH, pCO2),
+    # with temperature and salinity uncertain too.
+    conditions = {"temperature": 12.0, "salinity": 31.0}
+    u = standard_uncertainty(
+        **conditions,
+        **pair,
+        u_temperature=0.1,
+        u_salinity=0.2,
+        **{f"u_{name}": value for name, value in uncertainties.items()},
+        constant_uncertainties=None,
+    )
+    rng = np.random.default_rng(11)
+    n = 20_000
+    samples = solve(
+        temperature=rng.normal(12.0, 0.1, n),
+        salinity=rng.normal(31.0, 0.2, n),
+        **{name: rng.normal(value, uncertainties[name], n) for name, value in pair.items()},
+    )
+    for key in ("omega_aragonite", "ph_total", "carbonate"):
+        monte_carlo = float(np.std(getattr(samples, key), ddof=1))
+        assert float(u[key]) == pytest.approx(monte_carlo, rel=0.04), key
+
+
 def test_ksp_uncertainty_scales_omega_by_ln10():
     # Omega = [Ca][CO3]/Ksp, so a pKsp uncertainty of 0.02 is a relative
     # omega uncertainty of ln(10) * 0.02 = 4.61 % and leaves carbonate alone.
@@ -138,3 +169,25 @@ def test_probability_below():
     np.testing.assert_array_equal(probability_below([1.2, 1.8], 0.0, 1.5), [1.0, 0.0])
     with pytest.raises(ChemistryInputError, match="standard_uncertainty"):
         probability_below(1.0, -0.1, 1.5)
+
+
+def test_chunked_propagation_equals_one_pass(monkeypatch):
+    # Long arrays are propagated in chunks; the chunk size must not change the answer.
+    import chemistry.uncertainty as module
+
+    ph = np.linspace(7.6, 8.1, 7).reshape(7, 1)
+    kwargs = {
+        "temperature": [10.0, 14.0],
+        "salinity": 31.0,
+        "ph": ph,
+        "alkalinity": 2150.0,
+        "u_ph": 0.03,
+        "u_temperature": 0.2,
+        "at_temperature": 24.0,
+    }
+    one_pass = standard_uncertainty(**kwargs)
+    monkeypatch.setattr(module, "_STACKED_WATERS", 40)
+    chunked = standard_uncertainty(**kwargs)
+    assert one_pass["omega_aragonite"].shape == (7, 2)
+    for key, value in one_pass.items():
+        np.testing.assert_allclose(chunked[key], value, rtol=1e-12, atol=1e-12, err_msg=key)
