@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from chemistry import (
     CHEMICALS,
@@ -162,3 +164,28 @@ def test_caution_says_what_the_rules_require():
         "local codes",
     ):
         assert phrase in text
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    temperature=st.floats(2.0, 30.0),
+    salinity=st.floats(20.0, 36.0),
+    ph=st.floats(7.3, 8.1),
+    alkalinity=st.floats(1600.0, 2500.0),
+    target=st.floats(1.0, 4.0),
+)
+def test_dose_advice_property(temperature, salinity, ph, alkalinity, target):
+    # For any plausible intake, soda-ash advice either reaches the target
+    # (checked by an independent re-solve), says none is needed, or refuses.
+    water = solve(temperature=temperature, salinity=salinity, ph=ph, alkalinity=alkalinity)
+    try:
+        advice = dose_for_target(water, target, "sodium_carbonate")
+    except DoseRefusedError as refusal:
+        assert "pH_total" in str(refusal) or "cannot raise" in str(refusal)
+        return
+    if advice.mg_per_l == 0:
+        assert float(water.omega_aragonite) >= target
+        return
+    check = add_chemical(water, "sodium_carbonate", advice.mg_per_l)
+    assert float(check.omega_aragonite) == pytest.approx(target, abs=1e-3)
+    assert float(check.ph_total) <= MAX_RESULT_PH_TOTAL
