@@ -11,7 +11,7 @@ The week holds three things a hatchery manager sees on a real coast:
 - a day-night cycle: the water warms in the afternoon, and photosynthesis draws
   CO2 down by day while respiration puts it back at night;
 - an upwelling event, about two days of cold, CO2-rich, low-saturation water
-  (in-situ aragonite saturation well below 1.5);
+  (in-situ aragonite saturation well below 1.5), still under way when the week ends;
 - a day of rain that freshens the intake by several salinity units.
 
 Everything is invented for the demo; nothing here is a measurement. All
@@ -97,7 +97,10 @@ class Episode:
         return start, stop
 
 
-UPWELLING = Episode("upwelling", starts_hours_before_end=86.0, duration_hours=48.0, ramp_hours=8.0)
+# The upwelling began about two days before the week ends and is still at full strength at
+# its end, so the demo opens on a live event: tanks below their floor, alerts active, dose
+# advice worth reading.
+UPWELLING = Episode("upwelling", starts_hours_before_end=46.0, duration_hours=56.0, ramp_hours=8.0)
 RAIN = Episode("rain", starts_hours_before_end=150.0, duration_hours=24.0, ramp_hours=4.0)
 
 
