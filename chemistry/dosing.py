@@ -26,7 +26,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from chemistry.density import seawater_density
-from chemistry.errors import ChemistryInputError
+from chemistry.errors import ChemistryInputError, check_nonnegative
 from chemistry.solver import CarbonateState, solve
 from chemistry.transforms import at_temperature
 from chemistry.units import ATOMIC_WEIGHT
@@ -160,12 +160,7 @@ def dose_additions(
     IUPAC2007, MilleroPoisson1981.
     """
     spec = _chemical(chemical)
-    dose = np.asarray(mg_per_l, dtype=np.float64)
-    bad = ~(dose >= 0) | ~np.isfinite(dose)
-    if np.any(bad):
-        raise ChemistryInputError(
-            f"dose (mg/L) must be a finite number of 0 or more; got {float(dose[bad].flat[0]):g}."
-        )
+    dose = check_nonnegative("dose", mg_per_l, unit="mg/L")
     density_kg_per_l = seawater_density(temperature, salinity) / 1000.0
     umol_per_kg = dose / spec.molar_mass * 1000.0 / density_kg_per_l
     return umol_per_kg * spec.alkalinity_per_mole, umol_per_kg * spec.dic_per_mole
@@ -306,21 +301,30 @@ def dose_for_target(
     alkalinity_per_mg_per_l, _ = dose_additions(chemical, 1.0, water.temperature, water.salinity)
     largest_dose = MAX_ALKALINITY_ADDED / float(alkalinity_per_mg_per_l)
     if shortfall(largest_dose) < 0:
+        instead = (
+            "lower the target and check the measurements"
+            if chemical == "sodium_carbonate"
+            else "use sodium carbonate, or lower the target"
+        )
         raise DoseRefusedError(
             f"{chemical} cannot raise omega aragonite from {start:.2f} to {target:g} within "
             f"{largest_dose:.0f} mg/L (an alkalinity rise of {MAX_ALKALINITY_ADDED:g} umol/kg, "
-            "the most this tool advises in one treatment); use sodium carbonate, "
-            "or lower the target."
+            f"the most this tool advises in one treatment); {instead}."
         )
     dose = float(brentq(shortfall, 0.0, largest_dose, xtol=_DOSE_TOLERANCE_MG_PER_L))
     result = add_chemical(water, chemical, dose)
     ph_total = float(result.ph_total)
     if ph_total > MAX_RESULT_PH_TOTAL:
+        richer_in_carbon = (
+            "sodium carbonate or bicarbonate, which add carbon"
+            if chemical == "sodium_hydroxide"
+            else "sodium bicarbonate, which adds more carbon per unit of alkalinity"
+        )
         raise DoseRefusedError(
             f"Reaching omega aragonite {target:g} with {chemical} ({dose:.1f} mg/L) would raise "
             f"pH_total to {ph_total:.2f}, above the {MAX_RESULT_PH_TOTAL:g} this tool allows; "
-            "lower the target, or use sodium bicarbonate, which adds more carbon per unit of "
-            "alkalinity and so reaches a given saturation at a lower pH."
+            f"lower the target, or use {richer_in_carbon} and so reach a given saturation at "
+            "a lower pH."
         )
     alkalinity_added, dic_added = dose_additions(chemical, dose, water.temperature, water.salinity)
     return DoseAdvice(
