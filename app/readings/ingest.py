@@ -44,6 +44,9 @@ DEFAULT_ALKALINITY_UNCERTAINTY: Mapping[str, float] = {
 
 # Database round trips: IN lists and executemany batches are kept at this size.
 CHUNK = 900
+# Rows per multi-row INSERT: about 30 columns each stays under SQLite's 32766 bound
+# parameters per statement (and PostgreSQL's 65535).
+INSERT_CHUNK = 500
 
 QC_COLUMNS = (
     "qc_temperature",
@@ -452,15 +455,14 @@ def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetim
         from sqlalchemy.dialects.sqlite import insert
     else:  # pragma: no cover - the service supports these two databases only
         raise RuntimeError(f"unsupported database dialect {dialect!r}")
+    table = Reading.__table__
+    # A Core executemany: SQLAlchemy batches it into multi-row INSERTs ("insertmanyvalues")
+    # with a cached compilation, and RETURNING gives back only the rows really inserted.
+    statement = insert(table).on_conflict_do_nothing().returning(table.c.id, table.c.observed_at)
     stored: dict[dt.datetime, int] = {}
-    for chunk in _chunks(rows):
-        statement = (
-            insert(Reading)
-            .values(list(chunk))
-            .on_conflict_do_nothing()
-            .returning(Reading.id, Reading.observed_at)
-        )
-        for row_id, observed_at in session.execute(statement).all():
+    connection = session.connection()
+    for chunk in _chunks(rows, INSERT_CHUNK):
+        for row_id, observed_at in connection.execute(statement, list(chunk)).all():
             stored[observed_at] = row_id
     return stored
 
@@ -576,6 +578,9 @@ def ingest_readings(
         row.update({name: int(flags[name][i]) for name in QC_COLUMNS})
         rows.append(row)
 
+    # One order for every request, so that two inserting the same readings wait for each
+    # other on the unique index instead of deadlocking.
+    rows.sort(key=lambda row: row["observed_at"])
     inserted = _insert_new(session, rows)
     raced = [c for c in candidates if c.reading.observed_at not in inserted]
     if raced:
