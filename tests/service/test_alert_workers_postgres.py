@@ -39,8 +39,10 @@ pytestmark = [
 
 REPO = Path(__file__).resolve().parents[2]
 SILENT_STATIONS = 12
+WAITING_MAILS = 60
 WORKER_SCRIPT = """
 import sys, time
+from app.alerts.sender import send_due
 from app.cli.worker import run_cycle
 from app.db import make_engine, make_sessionmaker
 from app.settings import Settings
@@ -50,6 +52,8 @@ factory = make_sessionmaker(make_engine(settings))
 start = float(sys.argv[1])
 while time.time() < start:
     time.sleep(0.001)
+for _ in range(3):
+    send_due(factory=factory, settings=settings)
 for _ in range(4):
     run_cycle(factory=factory, settings=settings)
 """
@@ -87,6 +91,23 @@ def silent_site(engine):
                     updated_at=two_hours_ago,
                 )
             )
+        # Mail already waiting when both workers start: they race for the same rows.
+        for i in range(WAITING_MAILS):
+            session.add(
+                OutboxMessage(
+                    site_id=site_id,
+                    kind="reminder",
+                    recipients=["night-shift@hatchery.example"],
+                    subject=f"Waiting mail {i}",
+                    body_text="text",
+                    body_html="<p>text</p>",
+                    message_id=f"<waiting.{i}.{site_id}@spatline.invalid>",
+                    status="pending",
+                    attempts=0,
+                    next_attempt_at=two_hours_ago,
+                    created_at=two_hours_ago,
+                )
+            )
         session.commit()
     yield site_id
     with Session(engine) as session:
@@ -106,7 +127,7 @@ def test_two_workers_raise_and_send_each_alert_once(engine, settings, silent_sit
             "SPATLINE_SMTP_SECURITY": "none",
             "SPATLINE_SMTP_FROM": "alerts@hatchery.example",
         }
-        start = f"{time.time() + 2.0:.3f}"
+        start = f"{time.time() + 6.0:.3f}"  # after both have imported
         workers = [
             subprocess.Popen(
                 [sys.executable, "-c", WORKER_SCRIPT, start],
@@ -137,6 +158,7 @@ def test_two_workers_raise_and_send_each_alert_once(engine, settings, silent_sit
         ).all()
         assert sorted(row.kind for row in outbox).count("raised") == SILENT_STATIONS
         assert [row.kind for row in outbox].count("daily_summary") == 1
+        assert [row.kind for row in outbox].count("reminder") == WAITING_MAILS
         assert {row.status for row in outbox} == {"sent"}
         summaries = session.scalar(
             select(func.count(DailySummaryRecord.id)).where(
@@ -145,5 +167,5 @@ def test_two_workers_raise_and_send_each_alert_once(engine, settings, silent_sit
         )
         assert summaries == 1
         sent_ids = [str(m["Message-ID"]).strip() for m in server.messages]
-        assert len(sent_ids) == len(set(sent_ids)) == SILENT_STATIONS + 1
+        assert len(sent_ids) == len(set(sent_ids)) == SILENT_STATIONS + 1 + WAITING_MAILS
         assert set(sent_ids) == {row.message_id for row in outbox}
