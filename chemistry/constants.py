@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from functools import cached_property
 
 import numpy as np
 
@@ -95,8 +96,12 @@ def _sqrt(x):
     return math.sqrt(x) if type(x) is float else np.sqrt(x)
 
 
+LN10 = math.log(10.0)
+
+
 def _pow10(x):
-    return 10.0**x if type(x) is float else np.power(10.0, x)
+    # exp is several times faster than numpy's power for arrays; the two agree to rounding.
+    return math.exp(LN10 * x) if type(x) is float else np.exp(LN10 * x)
 
 
 def _num(x):
@@ -107,6 +112,36 @@ def _num(x):
         return float(x)
     array = np.asarray(x, dtype=np.float64)
     return float(array) if array.ndim == 0 else array
+
+
+class _Terms:
+    """Temperature and salinity terms that several relations share.
+
+    :func:`compute_constants` builds one of these per solve, so that T, 1/T, ln T and
+    sqrt(S) are computed once rather than once per relation; the public relation functions
+    build their own.
+    """
+
+    def __init__(self, temperature, salinity):
+        self.t = _num(temperature)
+        self.s = _num(salinity)
+        self.tk = self.t + ZERO_CELSIUS_K
+        self.inv_tk = 1.0 / self.tk
+        self.ln_tk = _ln(self.tk)
+        self.sqrt_s = _sqrt(self.s)
+
+    @cached_property
+    def ionic_strength(self):
+        return _ionic_strength(self.s)
+
+    @cached_property
+    def sqrt_ionic_strength(self):
+        return _sqrt(self.ionic_strength)
+
+    @cached_property
+    def ln_solution_to_water(self):
+        # ln of kg H2O per kg of seawater, turning mol/kg-H2O into mol/kg-soln.
+        return _ln(1.0 - 0.001005 * self.s)
 
 
 # --- CO2 solubility and fugacity --------------------------------------------------------
@@ -132,13 +167,16 @@ def k0_weiss1974(temperature, salinity):
     Valid for t = -1 to 40 deg C and S = 0 to 40. Reference: Weiss1974 (equation 12 with the
     mol/kg coefficients of its table 1, as in DSC2007 chapter 5).
     """
-    tk100 = (_num(temperature) + ZERO_CELSIUS_K) / 100.0
-    s = _num(salinity)
+    return _k0_weiss1974(_Terms(temperature, salinity))
+
+
+def _k0_weiss1974(x):
+    tk100 = 0.01 * x.tk
     ln_k0 = (
         -60.2409
-        + 93.4517 / tk100
-        + 23.3585 * _ln(tk100)
-        + s * (0.023517 - 0.023656 * tk100 + 0.0047036 * tk100 * tk100)
+        + 93.4517 * 100.0 * x.inv_tk
+        + 23.3585 * (x.ln_tk - math.log(100.0))
+        + x.s * (0.023517 + tk100 * (0.0047036 * tk100 - 0.023656))
     )
     return _exp(ln_k0)
 
@@ -215,9 +253,12 @@ def k1_lueker2000(temperature, salinity):
     Valid for S = 19 to 43 and t = 2 to 35 deg C. Fit by Lueker2000 to the measurements of
     Mehrbach et al. (1973). Calculated fCO2 is about 3 % low above about 500 uatm (Lueker2000).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    pk1 = 3633.86 / tk - 61.2172 + 9.6777 * _ln(tk) - 0.011555 * s + 0.0001152 * s * s
+    return _k1_lueker2000(_Terms(temperature, salinity))
+
+
+def _k1_lueker2000(x):
+    s = x.s
+    pk1 = 3633.86 * x.inv_tk - 61.2172 + 9.6777 * x.ln_tk + s * (0.0001152 * s - 0.011555)
     return _pow10(-pk1)
 
 
@@ -240,9 +281,12 @@ def k2_lueker2000(temperature, salinity):
     -----
     Valid for S = 19 to 43 and t = 2 to 35 deg C. Reference: Lueker2000.
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    pk2 = 471.78 / tk + 25.9290 - 3.16967 * _ln(tk) - 0.01781 * s + 0.0001122 * s * s
+    return _k2_lueker2000(_Terms(temperature, salinity))
+
+
+def _k2_lueker2000(x):
+    s = x.s
+    pk2 = 471.78 * x.inv_tk + 25.9290 - 3.16967 * x.ln_tk + s * (0.0001122 * s - 0.01781)
     return _pow10(-pk2)
 
 
@@ -267,15 +311,16 @@ def k1_millero2010_seawater_scale(temperature, salinity):
     coefficients (pK1 = pK1_0 + A1 + B1/T + C1 ln T, pK1_0 from Harned and Davis for pure
     water).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    sqrt_s = _sqrt(s)
-    ln_tk = _ln(tk)
-    pk1_pure = -126.34048 + 6320.813 / tk + 19.568224 * ln_tk
+    return _k1_millero2010_seawater_scale(_Terms(temperature, salinity))
+
+
+def _k1_millero2010_seawater_scale(x):
+    s, sqrt_s, ln_tk = x.s, x.sqrt_s, x.ln_tk
+    pk1_pure = -126.34048 + 6320.813 * x.inv_tk + 19.568224 * ln_tk
     a1 = 13.4038 * sqrt_s + 0.03206 * s - 5.242e-5 * s * s
     b1 = -530.659 * sqrt_s - 5.8210 * s
     c1 = -2.0664 * sqrt_s
-    return _pow10(-(pk1_pure + a1 + b1 / tk + c1 * ln_tk))
+    return _pow10(-(pk1_pure + a1 + b1 * x.inv_tk + c1 * ln_tk))
 
 
 def k2_millero2010_seawater_scale(temperature, salinity):
@@ -298,22 +343,23 @@ def k2_millero2010_seawater_scale(temperature, salinity):
     Valid for S = 1 to 50 and t = 0 to 50 deg C. Reference: Millero2010, seawater-scale
     coefficients.
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    sqrt_s = _sqrt(s)
-    ln_tk = _ln(tk)
-    pk2_pure = -90.18333 + 5143.692 / tk + 14.613358 * ln_tk
+    return _k2_millero2010_seawater_scale(_Terms(temperature, salinity))
+
+
+def _k2_millero2010_seawater_scale(x):
+    s, sqrt_s, ln_tk = x.s, x.sqrt_s, x.ln_tk
+    pk2_pure = -90.18333 + 5143.692 * x.inv_tk + 14.613358 * ln_tk
     a2 = 21.3728 * sqrt_s + 0.1218 * s - 3.688e-4 * s * s
     b2 = -788.289 * sqrt_s - 19.189 * s
     c2 = -3.374 * sqrt_s
-    return _pow10(-(pk2_pure + a2 + b2 / tk + c2 * ln_tk))
+    return _pow10(-(pk2_pure + a2 + b2 * x.inv_tk + c2 * ln_tk))
 
 
-def _seawater_to_total_factor(temperature, salinity):
+def _seawater_to_total_factor(x, kf=None):
     """K_total / K_seawater for a constant with one hydrogen ion: 1 / (1 + F_T / KF_total)."""
-    return 1.0 / (
-        1.0 + total_fluoride_riley1965(salinity) / kf_perez_fraga1987(temperature, salinity)
-    )
+    if kf is None:
+        kf = _kf_perez_fraga1987(x)
+    return 1.0 / (1.0 + total_fluoride_riley1965(x.s) / kf)
 
 
 def k1_millero2010(temperature, salinity):
@@ -328,9 +374,8 @@ def k1_millero2010(temperature, salinity):
     K1 : float or ndarray
         mol/kg-soln, total pH scale. Valid for S = 1 to 50 and t = 0 to 50 deg C.
     """
-    return k1_millero2010_seawater_scale(temperature, salinity) * _seawater_to_total_factor(
-        temperature, salinity
-    )
+    x = _Terms(temperature, salinity)
+    return _k1_millero2010_seawater_scale(x) * _seawater_to_total_factor(x)
 
 
 def k2_millero2010(temperature, salinity):
@@ -341,9 +386,8 @@ def k2_millero2010(temperature, salinity):
     K2 : float or ndarray
         mol/kg-soln, total pH scale. Valid for S = 1 to 50 and t = 0 to 50 deg C.
     """
-    return k2_millero2010_seawater_scale(temperature, salinity) * _seawater_to_total_factor(
-        temperature, salinity
-    )
+    x = _Terms(temperature, salinity)
+    return _k2_millero2010_seawater_scale(x) * _seawater_to_total_factor(x)
 
 
 # --- Boric acid -------------------------------------------------------------------------
@@ -368,16 +412,19 @@ def kb_dickson1990(temperature, salinity):
     -----
     Valid for t = 0 to 45 deg C and S = 5 to 45. Reference: Dickson1990b (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    sqrt_s = _sqrt(s)
+    return _kb_dickson1990(_Terms(temperature, salinity))
+
+
+def _kb_dickson1990(x):
+    s, sqrt_s = x.s, x.sqrt_s
     ln_kb = (
-        (-8966.90 - 2890.53 * sqrt_s - 77.942 * s + 1.728 * s * sqrt_s - 0.0996 * s * s) / tk
+        (-8966.90 - 2890.53 * sqrt_s - 77.942 * s + 1.728 * s * sqrt_s - 0.0996 * s * s)
+        * x.inv_tk
         + 148.0248
         + 137.1942 * sqrt_s
         + 1.62142 * s
-        - (24.4344 + 25.085 * sqrt_s + 0.2474 * s) * _ln(tk)
-        + 0.053105 * sqrt_s * tk
+        - (24.4344 + 25.085 * sqrt_s + 0.2474 * s) * x.ln_tk
+        + 0.053105 * sqrt_s * x.tk
     )
     return _exp(ln_kb)
 
@@ -390,7 +437,7 @@ def total_boron_lee2010(salinity):
     total_boron : float or ndarray
         mol/kg-soln.
     """
-    return 0.0004326 * _num(salinity) / 35.0
+    return (0.0004326 / 35.0) * _num(salinity)
 
 
 def total_boron_uppstrom1974(salinity):
@@ -401,7 +448,7 @@ def total_boron_uppstrom1974(salinity):
     total_boron : float or ndarray
         mol/kg-soln.
     """
-    return 0.000416 * _num(salinity) / 35.0
+    return (0.000416 / 35.0) * _num(salinity)
 
 
 # --- Water, sulfate, fluoride -----------------------------------------------------------
@@ -426,15 +473,17 @@ def kw_millero1995(temperature, salinity):
     -----
     Valid for t = 0 to 45 deg C and S = 0 to 45. Reference: Millero1995 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    ln_tk = _ln(tk)
+    return _kw_millero1995(_Terms(temperature, salinity))
+
+
+def _kw_millero1995(x):
+    ln_tk = x.ln_tk
     ln_kw = (
         148.9652
-        - 13847.26 / tk
+        - 13847.26 * x.inv_tk
         - 23.6521 * ln_tk
-        + (118.67 / tk - 5.977 + 1.0495 * ln_tk) * _sqrt(s)
-        - 0.01615 * s
+        + (118.67 * x.inv_tk - 5.977 + 1.0495 * ln_tk) * x.sqrt_s
+        - 0.01615 * x.s
     )
     return _exp(ln_kw)
 
@@ -463,20 +512,21 @@ def ks_dickson1990(temperature, salinity):
     -----
     Valid for t = 0 to 45 deg C and S = 5 to 45. Reference: Dickson1990a (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    ionic = _ionic_strength(s)
-    sqrt_i = _sqrt(ionic)
-    ln_tk = _ln(tk)
+    return _ks_dickson1990(_Terms(temperature, salinity))
+
+
+def _ks_dickson1990(x):
+    inv_tk, ln_tk = x.inv_tk, x.ln_tk
+    ionic = x.ionic_strength
+    sqrt_i = x.sqrt_ionic_strength
     ln_ks = (
-        -4276.1 / tk
+        -4276.1 * inv_tk
         + 141.328
         - 23.093 * ln_tk
-        + (-13856.0 / tk + 324.57 - 47.986 * ln_tk) * sqrt_i
-        + (35474.0 / tk - 771.54 + 114.723 * ln_tk) * ionic
-        - 2698.0 / tk * ionic * sqrt_i
-        + 1776.0 / tk * ionic * ionic
-        + _ln(1.0 - 0.001005 * s)
+        + (-13856.0 * inv_tk + 324.57 - 47.986 * ln_tk) * sqrt_i
+        + (35474.0 * inv_tk - 771.54 + 114.723 * ln_tk) * ionic
+        + (-2698.0 * sqrt_i + 1776.0 * ionic) * inv_tk * ionic
+        + x.ln_solution_to_water
     )
     return _exp(ln_ks)
 
@@ -489,7 +539,7 @@ def total_sulfate_morris_riley1966(salinity):
     total_sulfate : float or ndarray
         mol/kg-soln. Reference: MorrisRiley1966.
     """
-    return (0.1400 / 96.062) * (_num(salinity) / 1.80655)
+    return (0.1400 / 96.062 / 1.80655) * _num(salinity)
 
 
 def kf_perez_fraga1987(temperature, salinity):
@@ -511,8 +561,11 @@ def kf_perez_fraga1987(temperature, salinity):
     -----
     Valid for t = 9 to 33 deg C and S = 10 to 40. Reference: PerezFraga1987 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    return _exp(874.0 / tk - 9.68 + 0.111 * _sqrt(_num(salinity)))
+    return _kf_perez_fraga1987(_Terms(temperature, salinity))
+
+
+def _kf_perez_fraga1987(x):
+    return _exp(874.0 * x.inv_tk - 9.68 + 0.111 * x.sqrt_s)
 
 
 def total_fluoride_riley1965(salinity):
@@ -523,7 +576,7 @@ def total_fluoride_riley1965(salinity):
     total_fluoride : float or ndarray
         mol/kg-soln. Reference: Riley1965.
     """
-    return (0.000067 / 18.998) * (_num(salinity) / 1.80655)
+    return (0.000067 / 18.998 / 1.80655) * _num(salinity)
 
 
 # --- Phosphoric and silicic acid --------------------------------------------------------
@@ -538,14 +591,17 @@ def k1p_millero1995(temperature, salinity):
         mol/kg-soln, total pH scale. Valid for t = 0 to 45 deg C and S = 0 to 45 (fit range
         as given in DSC2007). Reference: Millero1995 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
+    return _k1p_millero1995(_Terms(temperature, salinity))
+
+
+def _k1p_millero1995(x):
+    inv_tk = x.inv_tk
     ln_k = (
-        -4576.752 / tk
+        -4576.752 * inv_tk
         + 115.525
-        - 18.453 * _ln(tk)
-        + (-106.736 / tk + 0.69171) * _sqrt(s)
-        + (-0.65643 / tk - 0.01844) * s
+        - 18.453 * x.ln_tk
+        + (-106.736 * inv_tk + 0.69171) * x.sqrt_s
+        + (-0.65643 * inv_tk - 0.01844) * x.s
     )
     return _exp(ln_k)
 
@@ -559,14 +615,17 @@ def k2p_millero1995(temperature, salinity):
         mol/kg-soln, total pH scale. Valid for t = 0 to 45 deg C and S = 0 to 45.
         Reference: Millero1995 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
+    return _k2p_millero1995(_Terms(temperature, salinity))
+
+
+def _k2p_millero1995(x):
+    inv_tk = x.inv_tk
     ln_k = (
-        -8814.715 / tk
+        -8814.715 * inv_tk
         + 172.0883
-        - 27.927 * _ln(tk)
-        + (-160.340 / tk + 1.3566) * _sqrt(s)
-        + (0.37335 / tk - 0.05778) * s
+        - 27.927 * x.ln_tk
+        + (-160.340 * inv_tk + 1.3566) * x.sqrt_s
+        + (0.37335 * inv_tk - 0.05778) * x.s
     )
     return _exp(ln_k)
 
@@ -580,13 +639,16 @@ def k3p_millero1995(temperature, salinity):
         mol/kg-soln, total pH scale. Valid for t = 0 to 45 deg C and S = 0 to 45.
         Reference: Millero1995 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
+    return _k3p_millero1995(_Terms(temperature, salinity))
+
+
+def _k3p_millero1995(x):
+    inv_tk = x.inv_tk
     ln_k = (
-        -3070.75 / tk
+        -3070.75 * inv_tk
         - 18.141
-        + (17.27039 / tk + 2.81197) * _sqrt(s)
-        + (-44.99486 / tk - 0.09984) * s
+        + (17.27039 * inv_tk + 2.81197) * x.sqrt_s
+        + (-44.99486 * inv_tk - 0.09984) * x.s
     )
     return _exp(ln_k)
 
@@ -600,17 +662,20 @@ def ksi_millero1995(temperature, salinity):
         mol/kg-soln, total pH scale. Valid for t = 0 to 45 deg C and S = 0 to 45.
         Reference: Millero1995 (as in DSC2007).
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    ionic = _ionic_strength(s)
+    return _ksi_millero1995(_Terms(temperature, salinity))
+
+
+def _ksi_millero1995(x):
+    inv_tk = x.inv_tk
+    ionic = x.ionic_strength
     ln_k = (
-        -8904.2 / tk
+        -8904.2 * inv_tk
         + 117.385
-        - 19.334 * _ln(tk)
-        + (-458.79 / tk + 3.5913) * _sqrt(ionic)
-        + (188.74 / tk - 1.5998) * ionic
-        + (-12.1652 / tk + 0.07871) * ionic * ionic
-        + _ln(1.0 - 0.001005 * s)
+        - 19.334 * x.ln_tk
+        + (-458.79 * inv_tk + 3.5913) * x.sqrt_ionic_strength
+        + (188.74 * inv_tk - 1.5998) * ionic
+        + (-12.1652 * inv_tk + 0.07871) * ionic * ionic
+        + x.ln_solution_to_water
     )
     return _exp(ln_k)
 
@@ -626,7 +691,7 @@ def calcium_riley_tongudai1967(salinity):
     calcium : float or ndarray
         mol/kg-soln. Reference: RileyTongudai1967.
     """
-    return (0.02128 / 40.078) * (_num(salinity) / 1.80655)
+    return (0.02128 / 40.078 / 1.80655) * _num(salinity)
 
 
 def ksp_calcite_mucci1983(temperature, salinity):
@@ -637,17 +702,18 @@ def ksp_calcite_mucci1983(temperature, salinity):
     Ksp : float or ndarray
         (mol/kg-soln)^2. Valid for t = 5 to 40 deg C and S = 5 to 44. Reference: Mucci1983.
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    sqrt_s = _sqrt(s)
+    return _ksp_calcite_mucci1983(_Terms(temperature, salinity))
+
+
+def _ksp_calcite_mucci1983(x):
+    tk, inv_tk, s = x.tk, x.inv_tk, x.s
     log_ksp = (
         -171.9065
         - 0.077993 * tk
-        + 2839.319 / tk
-        + 71.595 * _ln(tk) / math.log(10.0)
-        + (-0.77712 + 0.0028426 * tk + 178.34 / tk) * sqrt_s
-        - 0.07711 * s
-        + 0.0041249 * s * sqrt_s
+        + 2839.319 * inv_tk
+        + 71.595 / LN10 * x.ln_tk
+        + (-0.77712 + 0.0028426 * tk + 178.34 * inv_tk) * x.sqrt_s
+        + s * (0.0041249 * x.sqrt_s - 0.07711)
     )
     return _pow10(log_ksp)
 
@@ -660,17 +726,18 @@ def ksp_aragonite_mucci1983(temperature, salinity):
     Ksp : float or ndarray
         (mol/kg-soln)^2. Valid for t = 5 to 40 deg C and S = 5 to 44. Reference: Mucci1983.
     """
-    tk = _num(temperature) + ZERO_CELSIUS_K
-    s = _num(salinity)
-    sqrt_s = _sqrt(s)
+    return _ksp_aragonite_mucci1983(_Terms(temperature, salinity))
+
+
+def _ksp_aragonite_mucci1983(x):
+    tk, inv_tk, s = x.tk, x.inv_tk, x.s
     log_ksp = (
         -171.945
         - 0.077993 * tk
-        + 2903.293 / tk
-        + 71.595 * _ln(tk) / math.log(10.0)
-        + (-0.068393 + 0.0017276 * tk + 88.135 / tk) * sqrt_s
-        - 0.10018 * s
-        + 0.0059415 * s * sqrt_s
+        + 2903.293 * inv_tk
+        + 71.595 / LN10 * x.ln_tk
+        + (-0.068393 + 0.0017276 * tk + 88.135 * inv_tk) * x.sqrt_s
+        + s * (0.0059415 * x.sqrt_s - 0.10018)
     )
     return _pow10(log_ksp)
 
@@ -800,10 +867,16 @@ def validity_warnings(temperature, salinity, carbonic="lueker2000"):
             if type(value) is float:
                 count, total, low, high = 1, 1, value, value
             else:
-                outside = (value < lo) | (value > hi)
-                count, total = int(outside.sum()), int(value.size)
-                picked = value[outside]
-                low, high = float(picked.min()), float(picked.max())
+                # Extremes of the values outside from the overall extremes: the lowest outside
+                # value is the overall minimum if any lies below, else the lowest above.
+                below = value < lo if v_min < lo else None
+                above = value > hi if v_max > hi else None
+                count = sum(int(np.count_nonzero(m)) for m in (below, above) if m is not None)
+                total = int(value.size)
+                low = v_min if below is not None else float(np.min(value, where=above,
+                                                                    initial=np.inf))
+                high = v_max if above is not None else float(np.max(value, where=below,
+                                                                     initial=-np.inf))
             sentences.append(
                 _range_sentence(name, unit, low, high, lo, hi, label, key, count, total)
             )
@@ -826,28 +899,30 @@ def compute_constants(temperature, salinity, pressure, carbonic, boron, with_nut
     ``with_nutrients=False`` skips the phosphate and silicate constants (returned as absent)
     when the caller knows both nutrients are zero.
     """
-    t = temperature
-    s = salinity
+    x = _Terms(temperature, salinity)
+    t = x.t
+    s = x.s
     k = {}
-    k["K0"] = k0_weiss1974(t, s)
+    k["K0"] = _k0_weiss1974(x)
+    kf = _kf_perez_fraga1987(x)
     if carbonic == "lueker2000":
-        k1 = k1_lueker2000(t, s)
-        k2 = k2_lueker2000(t, s)
+        k1 = _k1_lueker2000(x)
+        k2 = _k2_lueker2000(x)
     else:
-        k1 = k1_millero2010(t, s)
-        k2 = k2_millero2010(t, s)
-    kb = kb_dickson1990(t, s)
-    kw = kw_millero1995(t, s)
-    ks = ks_dickson1990(t, s)
-    kf = kf_perez_fraga1987(t, s)
+        seawater_to_total = _seawater_to_total_factor(x, kf)
+        k1 = _k1_millero2010_seawater_scale(x) * seawater_to_total
+        k2 = _k2_millero2010_seawater_scale(x) * seawater_to_total
+    kb = _kb_dickson1990(x)
+    kw = _kw_millero1995(x)
+    ks = _ks_dickson1990(x)
     total_sulfate = total_sulfate_morris_riley1966(s)
-    ksp_c = ksp_calcite_mucci1983(t, s)
-    ksp_a = ksp_aragonite_mucci1983(t, s)
+    ksp_c = _ksp_calcite_mucci1983(x)
+    ksp_a = _ksp_aragonite_mucci1983(x)
     if with_nutrients:
-        k1p = k1p_millero1995(t, s)
-        k2p = k2p_millero1995(t, s)
-        k3p = k3p_millero1995(t, s)
-        ksi = ksi_millero1995(t, s)
+        k1p = _k1p_millero1995(x)
+        k2p = _k2p_millero1995(x)
+        k3p = _k3p_millero1995(x)
+        ksi = _ksi_millero1995(x)
     has_pressure = np.any(pressure != 0.0)
     if has_pressure:
         free_to_total_0 = 1.0 + total_sulfate / ks
