@@ -26,7 +26,13 @@ from sqlalchemy import Connection, Select, and_, or_, select, text, update
 from sqlalchemy.orm import Session
 
 from app.readings.models import Reading
-from app.readings.qc import QcFlag, QcLimits, limits_with_overrides, run_qc
+from app.readings.qc import (
+    QcFlag,
+    QcLimits,
+    gross_range_test,
+    limits_with_overrides,
+    run_qc,
+)
 from app.readings.schemas import ReadingIn, RejectedItem, validate_reading
 from app.sites.models import Site, Station
 
@@ -274,8 +280,12 @@ def _derive(
     u_alkalinity: np.ndarray,
     u_ph: float,
     carbonic: str,
+    sensor_fault: np.ndarray,
 ) -> dict[str, np.ndarray]:
     """Chemistry at in-situ temperature for every derivable reading (NaN elsewhere).
+
+    Readings with an input outside its sensor span (a gross-range fail) are not
+    derived: their chemistry would be numbers about a broken sensor, not about water.
 
     One vectorised ``solve`` per pH scale present; a batch the engine refuses as a
     whole is retried reading by reading, so one underivable reading costs only itself.
@@ -291,6 +301,7 @@ def _derive(
         & np.isfinite(ph)
         & np.isfinite(alkalinity)
         & (scales != "")
+        & ~sensor_fault
     )
 
     def run(index: np.ndarray, scale: str) -> None:
@@ -368,6 +379,7 @@ def _quality_control(
     session: Session,
     *,
     station: Station,
+    limits: Mapping[str, QcLimits],
     times: list[dt.datetime],
     temperature: np.ndarray,
     salinity: np.ndarray,
@@ -383,7 +395,6 @@ def _quality_control(
     time, and neighbours whose tests it touches (the spike test of the reading before
     it, the rate-of-change window of the readings after it) are tested again.
     """
-    limits = _qc_limits(station)
     window = dt.timedelta(hours=max(lim.rate_of_change_window_hours for lim in limits.values()))
     gap = dt.timedelta(minutes=max(lim.max_gap_minutes for lim in limits.values()))
     first, last = min(times), max(times)
@@ -557,6 +568,19 @@ def ingest_readings(
     scales = [c.reading.ph_scale for c in candidates]
     alkalinity_input = np.array([_float_or_nan(c.alkalinity_input) for c in candidates])
     alkalinity, u_alkalinity, alkalinity_source = _alkalinity_used(candidates, station)
+    limits = _qc_limits(station)
+    sensor_fault = np.zeros(len(candidates), dtype=bool)
+    for variable, values in (
+        ("temperature", temperature),
+        ("salinity", salinity),
+        ("ph", ph),
+        ("alkalinity", alkalinity_input),
+    ):
+        span = limits[variable]
+        sensor_fault |= (
+            gross_range_test(values, sensor_min=span.sensor_min, sensor_max=span.sensor_max)
+            == QcFlag.FAIL
+        )
     derived = _derive(
         temperature=temperature,
         salinity=salinity,
@@ -566,11 +590,13 @@ def ingest_readings(
         u_alkalinity=u_alkalinity,
         u_ph=float(station.ph_uncertainty),
         carbonic=carbonic,
+        sensor_fault=sensor_fault,
     )
     derived_available = np.isfinite(derived["omega_aragonite"])
     flags, neighbour_changes = _quality_control(
         session,
         station=station,
+        limits=limits,
         times=[c.reading.observed_at for c in candidates],
         temperature=temperature,
         salinity=salinity,

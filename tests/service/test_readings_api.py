@@ -288,6 +288,10 @@ def test_qc_flags_a_sensor_fault_and_keeps_the_reading(client, session, fixed_st
     assert len(rows) == 3
     # pH 5.2 lies below the default sensor span (6.0 to 9.5): QARTOD gross range fail.
     assert rows[1].qc_ph == 4 and rows[1].qc_overall == 4 and rows[1].qc_derived == 4
+    # A broken sensor's value is kept as sent but no chemistry is derived from it.
+    assert rows[1].ph == 5.2
+    assert rows[1].omega_aragonite is None and rows[1].chemistry_version is None
+    assert rows[0].omega_aragonite is not None
     assert rows[0].qc_overall != 4 and rows[2].qc_overall != 4
 
 
