@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from app.readings.qc import (
     DEFAULT_QC_LIMIT_SOURCES,
@@ -319,3 +321,36 @@ class TestLimits:
             limits_with_overrides({"ph": {"spike_fail": -1}})
         with pytest.raises(ValueError, match="surprise"):
             limits_with_overrides({"ph": {"surprise": 1}})
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    values=st.lists(
+        st.one_of(st.floats(-5.0, 50.0, allow_nan=False), st.just(float("nan"))),
+        min_size=1,
+        max_size=60,
+    ),
+    seed=st.integers(0, 2**32 - 1),
+)
+def test_flags_are_valid_and_do_not_depend_on_arrival_order(values, seed):
+    # [IOC-FLAGS]: every flag is one of 1, 2, 3, 4, 9; a missing value is 9. Arrival
+    # order must not matter because the tests run in time order (design rule).
+    temperature = np.array(values)
+    times = minutes(temperature.size)
+    salinity = np.full(temperature.size, 31.0)
+    ph = np.full(temperature.size, 7.9) + 0.001 * np.arange(temperature.size)
+    order = np.random.default_rng(seed).permutation(temperature.size)
+    in_order = run_qc(times=times, temperature=temperature, salinity=salinity, ph=ph)
+    shuffled = run_qc(
+        times=times[order], temperature=temperature[order], salinity=salinity[order], ph=ph[order]
+    )
+    valid = {PASS, NOT_EVALUATED, SUSPECT, FAIL, MISSING}
+    assert set(in_order.overall.tolist()) <= valid
+    assert set(in_order.temperature.tolist()) <= valid
+    assert (in_order.temperature[np.isnan(temperature)] == MISSING).all()
+    assert shuffled.temperature.tolist() == in_order.temperature[order].tolist()
+    assert shuffled.overall.tolist() == in_order.overall[order].tolist()
+    # The overall flag is never better than any variable's (worst-of rule).
+    rank = {NOT_EVALUATED: 0, PASS: 1, MISSING: 2, SUSPECT: 3, FAIL: 4}
+    for overall, t in zip(in_order.overall.tolist(), in_order.temperature.tolist(), strict=True):
+        assert rank[overall] >= rank[t]
