@@ -1,26 +1,28 @@
 # The Spatline service image: the API, migrations applied at start.
 FROM python:3.11-slim
 
-# PYTHONPATH: the app is imported from this source tree, so that alembic.ini and every
-# file of migrations/ (versions/ is not a Python package, so not installed) sit beside it.
 ENV PYTHONDONTWRITEBYTECODE=1 \
     PYTHONUNBUFFERED=1 \
     PIP_NO_CACHE_DIR=1 \
-    PIP_DISABLE_PIP_VERSION_CHECK=1 \
-    PYTHONPATH=/srv/spatline
+    PIP_DISABLE_PIP_VERSION_CHECK=1
 
-WORKDIR /srv/spatline
-
-COPY pyproject.toml README.md alembic.ini ./
+# A plain (non-editable) install: the wheel carries the migrations, templates, static files
+# and chemistry data, so the source is built in a scratch directory and thrown away.
+WORKDIR /tmp/spatline-src
+COPY pyproject.toml README.md ./
 COPY app ./app
 COPY chemistry ./chemistry
 COPY demo ./demo
 COPY migrations ./migrations
 RUN pip install . \
+    && cd / \
+    && rm -rf /tmp/spatline-src \
     && useradd --create-home --uid 10001 spatline \
-    && mkdir -p var \
-    && chown spatline var
+    && mkdir -p /srv/spatline/var \
+    && chown spatline /srv/spatline/var
 
+# The default SQLite file (var/spatline.db) is relative to the working directory.
+WORKDIR /srv/spatline
 USER spatline
 EXPOSE 8000
 

@@ -7,14 +7,19 @@ from pathlib import Path
 from alembic import command
 from alembic.config import Config
 
+import migrations
 from app.settings import Settings
 
-REPO_ROOT = Path(__file__).resolve().parent.parent
-MIGRATIONS_DIR = REPO_ROOT / "migrations"
+# The migrations are a package installed beside ``app`` (package data carries env.py, the
+# revision template and versions/), so they are found from a wheel as well as a checkout.
+MIGRATIONS_DIR = Path(migrations.__file__).resolve().parent
+# alembic.ini only exists in a source checkout (for the plain `alembic` command); the
+# installed service needs nothing from it, since env.py takes the URL from the settings.
+SOURCE_ALEMBIC_INI = MIGRATIONS_DIR.parent / "alembic.ini"
 
 
 def alembic_config(settings: Settings) -> Config:
-    ini = REPO_ROOT / "alembic.ini"
+    ini = SOURCE_ALEMBIC_INI
     config = Config(str(ini)) if ini.exists() else Config()
     config.set_main_option("script_location", str(MIGRATIONS_DIR))
     config.attributes["settings"] = settings

@@ -79,6 +79,8 @@ def test_image_migrates_before_serving_on_all_interfaces() -> None:
     dockerfile = (ROOT / "Dockerfile").read_text(encoding="utf-8")
     assert re.search(r"^FROM python:3\.11-slim$", dockerfile, re.MULTILINE)
     assert re.search(r"^RUN pip install \.", dockerfile, re.MULTILINE)
+    # The installed wheel is complete (tests/test_packaging.py): no source tree on the path.
+    assert "PYTHONPATH" not in dockerfile
     command = re.search(r"^CMD (.+)$", dockerfile, re.MULTILINE)
     assert command is not None
     assert re.search(r"spatline migrate && spatline serve --host 0\.0\.0\.0", command.group(1))
