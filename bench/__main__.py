@@ -1,7 +1,8 @@
 """Run every benchmark module in ``bench/`` that defines ``main()``.
 
-Usage: ``python -m bench [NAME ...]`` runs all benchmarks, or only the named
-modules. The exit status is 1 when a benchmark reports a missed goal (its
+Usage: ``python -m bench [--quick] [NAME ...]`` runs all benchmarks, or only the named
+modules; ``--quick`` shrinks the service benchmarks' sizes for a smoke run (modules read
+it from ``bench._support.QUICK``). The exit status is 1 when a benchmark reports a missed goal (its
 ``main()`` returned False), so a script can notice; timings vary by machine,
 which is why goals are never asserted in the test suite.
 """
@@ -17,7 +18,8 @@ import bench
 
 
 def run(names: Sequence[str] = ()) -> int:
-    available = sorted(m.name for m in pkgutil.iter_modules(bench.__path__) if m.name != "__main__")
+    modules = pkgutil.iter_modules(bench.__path__)
+    available = sorted(m.name for m in modules if not m.name.startswith("_"))
     unknown = sorted(set(names) - set(available))
     if unknown:
         print(
@@ -42,4 +44,4 @@ def run(names: Sequence[str] = ()) -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(run(sys.argv[1:]))
+    sys.exit(run([arg for arg in sys.argv[1:] if arg != "--quick"]))

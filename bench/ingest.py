@@ -1,0 +1,125 @@
+"""Ingest over HTTP against the storage engine's own speed, in the same run.
+
+Posts batches of 1,000 readings of one station to ``POST /api/v1/readings`` of one
+``spatline serve`` process (one uvicorn worker) on a free loopback port, with a SQLite
+file in a temporary directory. Then the same rows, as the service stored them (every
+column, derived chemistry and QC flags included), go into a table of the same shape
+(the readings table's own DDL, indexes and unique constraints copied from the migrated
+file) with plain ``sqlite3`` ``executemany`` and a commit per batch, under the same
+pragmas the service sets (WAL, synchronous NORMAL).
+
+Goal (issue 6): the service stores at least 0.2 of the plain rate.
+
+``python -m bench ingest`` (``--quick``: fewer batches).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import sqlite3
+import tempfile
+import time
+from pathlib import Path
+
+from bench._support import QUICK, load_average, make_site, reading_items, serving
+
+BATCH = 1000
+BATCHES = 4 if QUICK else 20
+GOAL_RATIO = 0.2
+
+
+def _plain_rate(service_file: Path, plain_file: Path) -> float:
+    """Readings/s of executemany into a copy of the readings table's shape."""
+    source = sqlite3.connect(service_file)
+    try:
+        ddl = [
+            sql
+            for (sql,) in source.execute(
+                "SELECT sql FROM sqlite_master WHERE tbl_name = 'readings' AND sql IS NOT NULL "
+                "ORDER BY type = 'index'"
+            )
+        ]
+        columns = [row[1] for row in source.execute("PRAGMA table_info(readings)")]
+        if columns[1] != "station_pk":
+            raise RuntimeError(f"unexpected readings columns {columns}")
+        rows = source.execute(
+            f"SELECT {', '.join(columns)} FROM readings ORDER BY observed_at"
+        ).fetchall()
+    finally:
+        source.close()
+    plain = sqlite3.connect(plain_file, isolation_level=None)
+    try:
+        plain.execute("PRAGMA journal_mode=WAL")
+        plain.execute("PRAGMA synchronous=NORMAL")
+        plain.execute("PRAGMA foreign_keys=ON")
+        # The foreign key's target, so that the plain insert checks it as the service's does.
+        plain.execute("CREATE TABLE stations (pk INTEGER PRIMARY KEY)")
+        plain.executemany(
+            "INSERT INTO stations (pk) VALUES (?)", [(pk,) for pk in {row[1] for row in rows}]
+        )
+        for sql in ddl:
+            plain.execute(sql)
+        placeholders = ", ".join("?" for _ in columns)
+        insert = f"INSERT INTO readings ({', '.join(columns)}) VALUES ({placeholders})"
+        began = time.perf_counter()
+        for first in range(0, len(rows), BATCH):
+            plain.execute("BEGIN IMMEDIATE")
+            plain.executemany(insert, rows[first : first + BATCH])
+            plain.execute("COMMIT")
+        elapsed = time.perf_counter() - began
+        stored = plain.execute("SELECT count(*) FROM readings").fetchone()[0]
+    finally:
+        plain.close()
+    if stored != len(rows):
+        raise RuntimeError(f"plain insert stored {stored} of {len(rows)} rows")
+    return len(rows) / elapsed
+
+
+def main() -> bool:
+    import httpx
+
+    with tempfile.TemporaryDirectory() as scratch:
+        service_file = Path(scratch) / "service.db"
+        url = f"sqlite:///{service_file}"
+        site = make_site(url)
+        start = dt.datetime.now(dt.UTC).replace(second=0, microsecond=0) - dt.timedelta(
+            minutes=BATCH * BATCHES + 60
+        )
+        items = reading_items(start, BATCH * BATCHES)
+        headers = {"Authorization": f"Bearer {site.device_keys[0]}"}
+        batch_times: list[float] = []
+        with serving(url) as base, httpx.Client(base_url=base, timeout=120.0) as client:
+            # One small post first so that imports and connections are warm.
+            warm = client.post(
+                "/api/v1/readings", headers=headers, json={"readings": items[:1]}
+            )
+            warm.raise_for_status()
+            for first in range(1, len(items), BATCH):
+                batch = items[first : first + BATCH]
+                began = time.perf_counter()
+                answer = client.post("/api/v1/readings", headers=headers, json={"readings": batch})
+                batch_times.append(time.perf_counter() - began)
+                answer.raise_for_status()
+                summary = answer.json()
+                if summary["accepted"] != len(batch) or summary["rejected"]:
+                    raise RuntimeError(f"batch not stored whole: {summary}")
+        sent = len(items) - 1
+        service_rate = sent / sum(batch_times)
+        plain_rate = _plain_rate(service_file, Path(scratch) / "plain.db")
+
+    ratio = service_rate / plain_rate
+    met = ratio >= GOAL_RATIO
+    print(f"{load_average()}")
+    print(
+        f"service: {sent} readings in batches of {BATCH} over HTTP, {service_rate:,.0f} readings/s "
+        f"(median batch {sorted(batch_times)[len(batch_times) // 2] * 1000:.0f} ms)"
+    )
+    print(f"plain sqlite3 executemany, same rows and table shape: {plain_rate:,.0f} readings/s")
+    print(
+        f"ratio {ratio:.3f} (goal >= {GOAL_RATIO}): {'met' if met else 'MISSED'}"
+    )
+    return met
+
+
+if __name__ == "__main__":
+    main()
