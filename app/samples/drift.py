@@ -5,6 +5,10 @@ The alert goes through the alerts module's rule state machine and outbox
 mailed like any other alert. Its rule is made on first use, per station; it watches the
 absolute offset |sample pH - sensor pH| (total scale) with no hold time: a bottle sample is
 a deliberate check, not a noisy series.
+
+The offset is judged when a sample is stored, in the same transaction (as readings are
+judged on ingest), so reading the pH check never writes. The level is the rule's own
+(``DEFAULT_DRIFT_LEVEL`` when the rule is made); change it through the alert-rules API.
 """
 
 from __future__ import annotations
@@ -18,6 +22,14 @@ from app.alerts import state_machine as sm
 from app.alerts.evaluation import Observed, RuleContext, apply_observations
 from app.alerts.models import Alert, AlertRule
 from app.alerts.rules import open_alert, thresholds_of
+from app.samples.models import LabSample
+from app.samples.schemas import LabSampleCreate
+from app.samples.service import (
+    DEFAULT_DRIFT_LEVEL,
+    create_sample,
+    list_samples,
+    sample_ph_offsets,
+)
 from app.sites.models import Site, Station, Tank
 
 SENSOR_DRIFT_METRIC = "sensor_drift"
@@ -41,17 +53,22 @@ def _station_recipients(session: Session, station: Station) -> list[str]:
     return recipients
 
 
-def drift_rule(
-    *, session: Session, station: Station, level: float, now: dt.datetime
-) -> AlertRule:
-    """The station's sensor-drift rule, made on first use; its level follows the request."""
-    rule = session.scalars(
+def existing_drift_rule(*, session: Session, station: Station) -> AlertRule | None:
+    """The station's sensor-drift rule, if a sample has made one; never creates it."""
+    return session.scalars(
         select(AlertRule).where(
             AlertRule.station_pk == station.pk,
             AlertRule.metric == SENSOR_DRIFT_METRIC,
             AlertRule.deleted_at.is_(None),
         )
     ).first()
+
+
+def drift_rule(
+    *, session: Session, station: Station, level: float, now: dt.datetime
+) -> AlertRule:
+    """The station's sensor-drift rule, made on first use with ``level``."""
+    rule = existing_drift_rule(session=session, station=station)
     if rule is None:
         rule = AlertRule(
             site_id=station.site_id,
@@ -70,11 +87,6 @@ def drift_rule(
         )
         session.add(rule)
         session.flush()
-    elif rule.level != level:
-        rule.level = level
-        rule.clear_level = level
-        rule.updated_at = now
-        session.flush()
     return rule
 
 
@@ -85,10 +97,13 @@ def judge_drift(
     station: Station,
     offset: float,
     collected_at: dt.datetime,
-    level: float,
     now: dt.datetime,
+    level: float = DEFAULT_DRIFT_LEVEL,
 ) -> Alert | None:
-    """Feed the latest sample's offset to the drift rule; return the open alert, if any."""
+    """Feed the latest sample's offset to the drift rule; return the open alert, if any.
+
+    ``level`` is used only when the rule does not exist yet.
+    """
     rule = drift_rule(session=session, station=station, level=level, now=now)
     thresholds = thresholds_of(rule)
     size = abs(offset)
@@ -97,3 +112,44 @@ def judge_drift(
     )
     apply_observations(RuleContext(session, site, rule, None, station, now), [observed])
     return open_alert(session=session, rule_id=rule.id)
+
+
+def judge_latest_sample(
+    *, session: Session, site: Site, station: Station, now: dt.datetime
+) -> Alert | None:
+    """Judge the offset of the station's latest sample that has one; the open alert, if any.
+
+    Called when a sample is stored. The latest sample by collection time decides (a
+    backfilled older sample does not overrule a newer check); samples without two carbonate
+    parameters, or without sensor readings around their collection, are passed over.
+    """
+    samples = list_samples(session=session, station=station)
+    for sample in reversed(samples):
+        offsets = sample_ph_offsets(session=session, site=site, station=station,
+                                    samples=[sample])
+        if not offsets or offsets[0]["offset"] is None:
+            continue
+        entry = offsets[0]
+        return judge_drift(
+            session=session,
+            site=site,
+            station=station,
+            offset=float(entry["offset"]),  # type: ignore[arg-type]
+            collected_at=entry["collected_at"],  # type: ignore[arg-type]
+            now=now,
+        )
+    rule = existing_drift_rule(session=session, station=station)
+    return None if rule is None else open_alert(session=session, rule_id=rule.id)
+
+
+def record_sample(
+    *, session: Session, site: Site, station: Station, data: LabSampleCreate, now: dt.datetime
+) -> LabSample:
+    """Store a bottle sample and judge the drift alert in the same (uncommitted) transaction.
+
+    The one way samples are stored (API and web form), so no sample escapes the check.
+    Raises ``SampleConflictError`` when the station has a sample at that time.
+    """
+    sample = create_sample(session=session, station=station, data=data)
+    judge_latest_sample(session=session, site=site, station=station, now=now)
+    return sample

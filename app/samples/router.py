@@ -2,16 +2,15 @@
 
 from __future__ import annotations
 
-from typing import Annotated
-
-from fastapi import APIRouter, HTTPException, Query, status
+from fastapi import APIRouter, HTTPException, status
 from sqlalchemy.orm import Session
 
 import chemistry
+from app.alerts.rules import open_alert
 from app.auth.dependencies import AdminDep, ReaderDep
 from app.db import SessionDep, utcnow
 from app.samples import service
-from app.samples.drift import judge_drift
+from app.samples.drift import existing_drift_rule, record_sample
 from app.samples.schemas import (
     AlkalinityLine,
     AlkalinityLineApplied,
@@ -43,14 +42,21 @@ def _site_and_station(session: Session, site_id: str, station_id: str) -> tuple[
     status_code=status.HTTP_201_CREATED,
     response_model=LabSamplePublic,
     summary="Record a bottle sample analysed in a lab",
+    description="With two carbonate parameters, the station's latest sample is compared "
+    "with the pH sensor in the same transaction, and the 'sensor_drift' alert raised or "
+    "cleared (see `GET .../ph-check`).",
 )
 def create_lab_sample(
     site_id: str, station_id: str, body: LabSampleCreate, session: SessionDep,
     _principal: AdminDep,
 ) -> dict[str, object]:
-    _, station = _site_and_station(session, site_id, station_id)
+    site, station = _site_and_station(session, site_id, station_id)
+    # Judged with the sample, like readings on ingest: the alert and its mail are stored
+    # together with the sample or not at all.
     try:
-        sample = service.create_sample(session=session, station=station, data=body)
+        sample = record_sample(
+            session=session, site=site, station=station, data=body, now=utcnow()
+        )
     except service.SampleConflictError as error:
         raise HTTPException(status.HTTP_409_CONFLICT, str(error)) from error
     session.commit()
@@ -145,18 +151,12 @@ def apply_alkalinity_line(
     summary="Bottle-sample pH against the sensor's, and the drift alert",
     description="For each sample with two carbonate parameters: its pH (total scale) at the "
     "sensor's temperature minus the sensor's pH interpolated at collection time, and the "
-    "trend of these offsets. When the latest offset exceeds `level` in size, a "
-    "'sensor_drift' alert is raised (once); a later sample within it clears it.",
+    "trend of these offsets. The 'sensor_drift' alert is judged when a sample is posted "
+    "(raised once when the latest offset exceeds the drift rule's level in size, cleared by "
+    "a later sample within it); this view only reads.",
 )
 def get_ph_check(
-    site_id: str,
-    station_id: str,
-    session: SessionDep,
-    _principal: ReaderDep,
-    level: Annotated[
-        float,
-        Query(gt=0.0, le=1.0, description="Offset, pH units, above which the sensor drifts."),
-    ] = service.DEFAULT_DRIFT_LEVEL,
+    site_id: str, station_id: str, session: SessionDep, _principal: ReaderDep
 ) -> PhCheck:
     site, station = _site_and_station(session, site_id, station_id)
     samples = service.list_samples(session=session, station=station)
@@ -164,20 +164,10 @@ def get_ph_check(
         session=session, site=site, station=station, samples=samples
     )
     judged = [o for o in offsets if o["offset"] is not None]
-    latest = judged[-1] if judged else None
-    alert = None
-    if latest is not None:
-        alert = judge_drift(
-            session=session,
-            site=site,
-            station=station,
-            offset=float(latest["offset"]),  # type: ignore[arg-type]
-            collected_at=latest["collected_at"],  # type: ignore[arg-type]
-            level=level,
-            now=utcnow(),
-        )
-        session.commit()
-    latest_offset = None if latest is None else float(latest["offset"])  # type: ignore[arg-type]
+    latest_offset = float(judged[-1]["offset"]) if judged else None  # type: ignore[arg-type]
+    rule = existing_drift_rule(session=session, station=station)
+    level = service.DEFAULT_DRIFT_LEVEL if rule is None else rule.level
+    alert = None if rule is None else open_alert(session=session, rule_id=rule.id)
     return PhCheck(
         station_id=station.id,
         level=level,

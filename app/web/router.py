@@ -30,6 +30,7 @@ from app.auth.models import ApiKey
 from app.db import SessionDep, utcnow
 from app.readings.models import Reading
 from app.samples import service as samples_service
+from app.samples.drift import record_sample
 from app.samples.schemas import LabSampleCreate
 from app.sites import service as sites_service
 from app.sites.models import Site, Station, Tank
@@ -357,7 +358,9 @@ async def save_sample(request: Request, site_id: str, station_id: str, session: 
         return _sample_page(request, session, principal, site, station, values=values,
                             saved=None, errors=messages, status_code=422)
     try:
-        sample = samples_service.create_sample(session=session, station=station, data=body)
+        sample = record_sample(
+            session=session, site=site, station=station, data=body, now=utcnow()
+        )
     except samples_service.SampleConflictError as error:
         return _sample_page(request, session, principal, site, station, values=values,
                             saved=None, errors=[str(error)], status_code=409)

@@ -103,6 +103,30 @@ def test_alkalinity_line_needs_five_samples_then_fits_and_applies(
     assert mode["residual_sd"] == pytest.approx(residual_sd, rel=1e-9)
 
 
+def _drift_alerts(session, station):
+    from sqlalchemy import select
+
+    from app.alerts.models import Alert, AlertRule
+
+    return session.execute(
+        select(Alert.id, Alert.state)
+        .join(AlertRule, Alert.rule_id == AlertRule.id)
+        .where(AlertRule.station_pk == station.pk, AlertRule.metric == "sensor_drift")
+        .order_by(Alert.id)
+    ).all()
+
+
+def _row_counts(session) -> dict[str, int]:
+    from sqlalchemy import func, select
+
+    from app.alerts.models import Alert, AlertRule
+
+    return {
+        model.__tablename__: session.scalar(select(func.count()).select_from(model))
+        for model in (Alert, AlertRule)
+    }
+
+
 def test_ph_check_offsets_and_one_drift_alert(client, session, admin_headers, viewer_headers,
                                               make_station):
     station = make_station(role="intake")
@@ -117,9 +141,13 @@ def test_ph_check_offsets_and_one_drift_alert(client, session, admin_headers, vi
     # service to carry it back to 12 degC.
     truth = chemistry.solve(temperature=12.0, salinity=31.0, ph=7.88, alkalinity=2100.0)
     lab_ph = float(chemistry.at_temperature(truth, 25.0).ph_total)
-    client.post(url + "/lab-samples", headers=admin_headers, json={
+    posted = client.post(url + "/lab-samples", headers=admin_headers, json={
         "collected_at": T0.isoformat(), "salinity": 31.0, "temperature_c": 25.0,
         "alkalinity_umol_kg": 2100.0, "ph": lab_ph, "ph_scale": "total"})
+    assert posted.status_code == 201, posted.text
+    # Posting the sample judged it: the drift alert exists before anyone reads the check.
+    raised = _drift_alerts(session, station)
+    assert [state for _, state in raised] == ["active"]
     check = client.get(url + "/ph-check", headers=viewer_headers)
     assert check.status_code == 200, check.text
     body = check.json()
@@ -128,21 +156,20 @@ def test_ph_check_offsets_and_one_drift_alert(client, session, admin_headers, vi
     assert offset["sensor_temperature_c"] == pytest.approx(12.0)
     assert offset["sample_ph_total"] == pytest.approx(7.88, abs=1e-6)
     assert offset["offset"] == pytest.approx(0.08, abs=1e-6)
-    assert body["drifting"] is True and body["alert_id"] is not None
+    assert body["level"] == pytest.approx(0.05)  # the drift rule's default level
+    assert body["drifting"] is True and body["alert_id"] == raised[0].id
     assert body["caution"] == chemistry.DOSING_CAUTION
-    # Asking again raises nothing new.
-    assert client.get(url + "/ph-check", headers=viewer_headers).json()["alert_id"] == (
-        body["alert_id"])
     alerts = client.get(f"/api/v1/sites/{station.site_id}/alerts",
                         params={"state": "active"}, headers=viewer_headers).json()
     assert [a["id"] for a in alerts] == [body["alert_id"]]
 
-    # A day later a sample agreeing with the sensor (offset 0) clears the alert; the trend
-    # over the two offsets is (0 - 0.08) per day = -2.4 per 30 days.
+    # A day later a sample agreeing with the sensor (offset 0) clears the alert when it is
+    # posted; the trend over the two offsets is (0 - 0.08) per day = -2.4 per 30 days.
     at = T0 + dt.timedelta(days=1)
     client.post(url + "/lab-samples", headers=admin_headers, json={
         "collected_at": at.isoformat(), "salinity": 31.0, "temperature_c": 12.0,
         "alkalinity_umol_kg": 2100.0, "ph": 7.80, "ph_scale": "total"})
+    assert [state for _, state in _drift_alerts(session, station)] == ["cleared"]
     later = client.get(url + "/ph-check", headers=viewer_headers).json()
     assert later["latest_offset"] == pytest.approx(0.0, abs=1e-9)
     assert later["drifting"] is False and later["alert_id"] is None
@@ -150,6 +177,47 @@ def test_ph_check_offsets_and_one_drift_alert(client, session, admin_headers, vi
     open_now = client.get(f"/api/v1/sites/{station.site_id}/alerts",
                           params={"state": "open"}, headers=viewer_headers).json()
     assert open_now == []
+
+
+def test_ph_check_only_reads(client, session, admin_headers, viewer_headers, make_station):
+    """A drifting sample stored without its judgement (as before this rule) stays unjudged
+    by GET: the view reports the offset but creates no rule, alert or mail."""
+    from app.samples import service
+    from app.samples.schemas import LabSampleCreate
+
+    station = make_station(role="intake")
+    for at, ph in ((T0 - dt.timedelta(minutes=5), 7.80), (T0 + dt.timedelta(minutes=5), 7.80)):
+        _add_reading(session, station, at, ph_total=ph)
+    service.create_sample(session=session, station=station, data=LabSampleCreate(
+        collected_at=T0, salinity=31.0, temperature_c=12.0, alkalinity_umol_kg=2100.0,
+        ph=7.95, ph_scale="total"))
+    session.commit()
+    before = _row_counts(session)
+    for _ in range(2):
+        body = client.get(_samples_url(station) + "/ph-check", headers=viewer_headers).json()
+        assert body["latest_offset"] == pytest.approx(0.15, abs=1e-9)
+        assert body["drifting"] is True and body["alert_id"] is None
+    assert _row_counts(session) == before
+    assert _drift_alerts(session, station) == []
+
+
+def test_older_sample_posted_late_does_not_overrule_the_latest(
+        client, session, admin_headers, make_station):
+    station = make_station(role="intake")
+    url = _samples_url(station) + "/lab-samples"
+    for day in (0, 1):
+        for minutes, ph in ((-5, 7.80), (5, 7.80)):
+            _add_reading(session, station,
+                         T0 + dt.timedelta(days=day, minutes=minutes), ph_total=ph)
+    session.commit()
+    sample = {"salinity": 31.0, "temperature_c": 12.0, "alkalinity_umol_kg": 2100.0,
+              "ph_scale": "total"}
+    # The newer sample agrees with the sensor; an older, drifting one arrives afterwards.
+    client.post(url, headers=admin_headers, json=sample | {
+        "collected_at": (T0 + dt.timedelta(days=1)).isoformat(), "ph": 7.80})
+    client.post(url, headers=admin_headers, json=sample | {
+        "collected_at": T0.isoformat(), "ph": 7.95})
+    assert [state for _, state in _drift_alerts(session, station)] == []
 
 
 # --- larval batches ----------------------------------------------------------------------
