@@ -4,19 +4,18 @@ from __future__ import annotations
 
 import importlib
 import logging
-import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from typing import Any
 
 from fastapi import APIRouter, FastAPI, Request
-from fastapi.encoders import jsonable_encoder
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from sqlalchemy import Engine, text
-from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.db import make_engine, make_sessionmaker, read_only_engine
+from app.errors import ERROR_RESPONSES, validation_error_handler
+from app.limits import BodyLimitMiddleware, StrictJsonMiddleware
 from app.settings import Settings
 from app.web import install as install_web_pages
 
@@ -51,75 +50,6 @@ devices; **viewer** reads; **device** posts readings for its own station only.
 
 {CAUTION}
 """
-
-
-class BodyLimitMiddleware:
-    """Refuse request bodies over ``limit`` bytes with 413 before the app reads them whole."""
-
-    def __init__(self, app: ASGIApp, limit: int) -> None:
-        self.app = app
-        self.limit = limit
-
-    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
-        if scope["type"] != "http":
-            await self.app(scope, receive, send)
-            return
-        declared = dict(scope.get("headers") or []).get(b"content-length")
-        if declared is not None and declared.isdigit() and int(declared) > self.limit:
-            await self._refuse(send)
-            return
-        received = 0
-
-        async def limited_receive() -> Message:
-            nonlocal received
-            message = await receive()
-            if message["type"] == "http.request":
-                received += len(message.get("body", b""))
-                if received > self.limit:
-                    raise _BodyTooLargeError
-            return message
-
-        try:
-            await self.app(scope, limited_receive, send)
-        except _BodyTooLargeError:
-            await self._refuse(send)
-
-    async def _refuse(self, send: Send) -> None:
-        response = JSONResponse(
-            status_code=413,
-            content={
-                "detail": f"The request body is larger than {self.limit} bytes; "
-                "send fewer readings per request."
-            },
-        )
-        await response({"type": "http"}, _no_receive, send)
-
-
-class _BodyTooLargeError(Exception):
-    pass
-
-
-async def _no_receive() -> Message:
-    return {"type": "http.disconnect"}
-
-
-def _json_safe(value: Any) -> Any:
-    """Replace NaN and infinities (not valid JSON) with their names."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return repr(value)
-    if isinstance(value, dict):
-        return {key: _json_safe(item) for key, item in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_safe(item) for item in value]
-    return value
-
-
-async def _validation_error_handler(_request: Request, error: Exception) -> JSONResponse:
-    # FastAPI's own handler echoes the offending input, and a refused NaN or Infinity
-    # would make that answer itself unserialisable (a 500 instead of a 422).
-    assert isinstance(error, RequestValidationError)
-    detail = _json_safe(jsonable_encoder(error.errors()))
-    return JSONResponse(status_code=422, content={"detail": detail})
 
 
 def _health_router() -> APIRouter:
@@ -165,12 +95,14 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
     app.state.sessionmaker = make_sessionmaker(engine)
     app.state.read_sessionmaker = make_sessionmaker(app.state.read_engine)
 
+    # Added last is outermost: the size limit counts raw bytes before the JSON check reads them.
+    app.add_middleware(StrictJsonMiddleware, path_prefix=API_PREFIX)
     app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
-    app.add_exception_handler(RequestValidationError, _validation_error_handler)
+    app.add_exception_handler(RequestValidationError, validation_error_handler)
     app.include_router(_health_router())
     for module_name in ROUTER_MODULES:
         module = importlib.import_module(module_name)
-        app.include_router(module.router, prefix=API_PREFIX)
+        app.include_router(module.router, prefix=API_PREFIX, responses=ERROR_RESPONSES)
     install_web_pages(app, settings)
     return app
 

@@ -43,6 +43,9 @@ class Settings(BaseSettings):
     smtp_from: str = "spatline@localhost"
     run_worker_in_serve: bool = True
     body_limit_bytes: int = Field(default=2 * 1024 * 1024, ge=1024)
+    # Per device and per server process (app/limits.py); 0 turns the limit off.
+    device_requests_per_minute: float = Field(default=600.0, ge=0.0)
+    device_request_burst: int = Field(default=120, ge=1)
     sqlite_busy_timeout_s: float = Field(default=15.0, ge=0.0, le=600.0)
 
     @model_validator(mode="after")

@@ -10,16 +10,19 @@ from fastapi.encoders import jsonable_encoder
 from fastapi.responses import JSONResponse, Response, StreamingResponse
 from sqlalchemy.orm import Session
 
-from app.auth.dependencies import DeviceDep, Principal, ReaderDep, require_role
+from app.auth.dependencies import Principal, ReaderDep, require_role
 from app.db import SessionDep, utcnow
+from app.limits import RateLimitedDeviceDep
 from app.readings import queries
 from app.readings.chemistry_api import ChemistrySolveIn, ChemistrySolveOut, solve_sample
 from app.readings.ingest import ingest_readings
 from app.readings.schemas import (
     MAX_READINGS_PER_REQUEST,
+    IngestRefused,
     IngestSummary,
     ReadingIn,
     ReadingPublic,
+    RejectedItem,
     readings_from_body,
 )
 from app.sites import service as sites_service
@@ -55,18 +58,25 @@ _BODY_SCHEMA = {
     "/readings",
     response_model=IngestSummary,
     summary="Post sensor readings (device key)",
+    responses={
+        422: {
+            "model": IngestRefused,
+            "description": "The body's shape is wrong, or no posted reading could be stored.",
+        }
+    },
     openapi_extra={
         "requestBody": {"required": True, "content": {"application/json": {"schema": _BODY_SCHEMA}}}
     },
 )
 def post_readings(
-    principal: DeviceDep,
+    principal: RateLimitedDeviceDep,
     session: SessionDep,
     payload: Annotated[Any, Body()],
 ) -> IngestSummary:
     """Store 1 to 5,000 readings of the device's own station.
 
-    The body is `{"readings": [...]}` or one reading object. Each item is checked on its
+    The body is `{"readings": [...]}` or one reading object. A device posting more often
+    than the configured rate gets 429 with `Retry-After`. Each item is checked on its
     own: good items are stored even when others are rejected, and the answer lists each
     rejected item's position with sentences saying what is wrong. A retry of a stored
     reading (same `reading_id`, or same `observed_at`) counts as a duplicate; the same key
@@ -90,9 +100,27 @@ def post_readings(
         now=utcnow(),
     )
     session.commit()
+    if result.rejected and not result.accepted and not result.duplicates:
+        # Nothing of the request was kept: an error status, so that a client that only
+        # looks at the status does not take the readings as stored.
+        refused = IngestRefused(
+            detail=_refusal_sentence(result.rejected),
+            accepted=0,
+            duplicates=0,
+            rejected=result.rejected,
+        )
+        return JSONResponse(  # type: ignore[return-value]
+            status_code=status.HTTP_422_UNPROCESSABLE_CONTENT, content=refused.model_dump()
+        )
     return IngestSummary(
         accepted=result.accepted, duplicates=result.duplicates, rejected=result.rejected
     )
+
+
+def _refusal_sentence(rejected: list[RejectedItem]) -> str:
+    shown = "; ".join(f"item {item.index}: {' and '.join(item.errors)}" for item in rejected[:5])
+    more = f" (and {len(rejected) - 5} more)" if len(rejected) > 5 else ""
+    return f"No reading was stored. {shown}{more}."
 
 
 def _station_or_404(session: Session, site_id: str, station_id: str) -> Station:

@@ -218,6 +218,12 @@ class IngestSummary(BaseModel):
     rejected: list[RejectedItem]
 
 
+class IngestRefused(IngestSummary):
+    """The 422 answer when no posted reading could be stored."""
+
+    detail: str = Field(description="What is wrong, in sentences naming the fields.")
+
+
 class ReadingPublic(BaseModel):
     """A stored reading: raw values, the chemistry derived from them and the QC flags."""
 
