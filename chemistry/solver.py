@@ -241,8 +241,11 @@ class _Water:
             setattr(other, name, value[index] if type(value) is not float else value)
         return other
 
-    def noncarbonate(self, h):
-        """Alkalinity from everything but the carbonate system and its d/dh, at [H+]_T = h."""
+    def noncarbonate(self, h, derivative=True):
+        """Alkalinity from everything but the carbonate system and its d/dh, at [H+]_T = h.
+
+        With ``derivative=False`` only the alkalinity, without the pair.
+        """
         borate_den = self.kb + h
         h_free = self.free_fraction * h
         sulfate_den = h_free + self.ks
@@ -256,6 +259,10 @@ class _Water:
             - self.total_sulfate * h_free / sulfate_den
             - self.total_fluoride * h / fluoride_den
         )
+        if not derivative:
+            if self.nutrients:
+                alk = alk + self._nutrient_alkalinity(h)[0]
+            return alk
         dalk = (
             -borate / borate_den
             - hydroxide / h
@@ -264,19 +271,24 @@ class _Water:
             - self.f_kf / (fluoride_den * fluoride_den)
         )
         if self.nutrients:
-            h2 = h * h
-            h3 = h2 * h
-            p_den = h3 + self.k1p * h2 + self.k1p_k2p * h + self.k1p_k2p_k3p
-            p_num = self.k1p_k2p * h + 2.0 * self.k1p_k2p_k3p - h3
-            si_den = self.ksi + h
-            alk = alk + self.phosphate * p_num / p_den + self.silicate * self.ksi / si_den
-            dp_num = self.k1p_k2p - 3.0 * h2
-            dp_den = 3.0 * h2 + 2.0 * self.k1p * h + self.k1p_k2p
-            dalk = (
-                dalk
-                + self.phosphate * (dp_num * p_den - p_num * dp_den) / (p_den * p_den)
-                - self.silicate * self.ksi / (si_den * si_den)
-            )
+            nutrient_alk, nutrient_dalk = self._nutrient_alkalinity(h)
+            alk = alk + nutrient_alk
+            dalk = dalk + nutrient_dalk
+        return alk, dalk
+
+    def _nutrient_alkalinity(self, h):
+        """Phosphate and silicate alkalinity and its d/dh."""
+        h2 = h * h
+        h3 = h2 * h
+        p_den = h3 + self.k1p * h2 + self.k1p_k2p * h + self.k1p_k2p_k3p
+        p_num = self.k1p_k2p * h + 2.0 * self.k1p_k2p_k3p - h3
+        si_den = self.ksi + h
+        alk = self.phosphate * p_num / p_den + self.silicate * self.ksi / si_den
+        dp_num = self.k1p_k2p - 3.0 * h2
+        dp_den = 3.0 * h2 + 2.0 * self.k1p * h + self.k1p_k2p
+        dalk = self.phosphate * (dp_num * p_den - p_num * dp_den) / (
+            p_den * p_den
+        ) - self.silicate * self.ksi / (si_den * si_den)
         return alk, dalk
 
     def bounds(self):
@@ -342,9 +354,9 @@ def _newton_array(evaluate, target, h, low, high, water, extra):
     """Vectorised :func:`_newton_scalar`; ``extra`` holds per-element arrays evaluate needs.
 
     Elements that have converged are dropped from the working set, so the cost follows the
-    slowest elements only while they remain. Dropping costs an indexing pass over every
-    array, so it waits until at least a quarter of the set has converged; converged
-    elements carried until then only take steps far below the tolerance.
+    slowest elements only while they remain. Each element's iterates depend on its own
+    values only, so a water gives the same bits whatever array it is solved in (finite-
+    difference uncertainties rely on that).
     """
     result = h.copy()
     active = np.arange(h.size)
@@ -359,17 +371,18 @@ def _newton_array(evaluate, target, h, low, high, water, extra):
         low = np.where(above, h, low)
         high = np.where(above, high, h)
         with np.errstate(divide="ignore", invalid="ignore"):
-            new = h - residual / slope
+            step = residual / slope
+        new = h - step
         outside = ~((new >= low) & (new <= high))
+        done = np.abs(step) <= _RELATIVE_TOLERANCE * new
         if outside.any():
             new = np.where(outside, np.sqrt(low * high), new)
-        done = (np.abs(new - h) <= _RELATIVE_TOLERANCE * new) | (
-            high - low <= _RELATIVE_TOLERANCE * low
-        )
+            # A bisection step says nothing about convergence; the bracket width does.
+            done = (done & ~outside) | (high - low <= _RELATIVE_TOLERANCE * low)
         if done.all():
             result[active] = new
             return result
-        if 4 * np.count_nonzero(done) >= done.size:
+        if done.any():
             result[active[done]] = new[done]
             keep = ~done
             active = active[keep]
@@ -419,8 +432,9 @@ def _h_from_alkalinity_dic(alkalinity, dic, water, scalar):
         )
     with np.errstate(divide="ignore", invalid="ignore"):
         h0 = (b + np.sqrt(disc)) / (2.0 * carbonate_alk)
-        # One refinement: borate and water at the first estimate instead of at pH 8.
-        noncarb, _ = water.noncarbonate(np.where(h0 > 0, h0, 1e-8))
+        # One refinement: borate and water at the first estimate instead of at pH 8. (More
+        # refinements cost as much as the Newton steps they save.)
+        noncarb = water.noncarbonate(np.where(h0 > 0, h0, 1e-8), derivative=False)
         carbonate_alk = alkalinity - noncarb
         b = (dic - carbonate_alk) * k1
         disc = b * b - 4.0 * carbonate_alk * (carbonate_alk - 2.0 * dic) * water.k1k2
@@ -707,8 +721,10 @@ def solve(
 
 # Arrays are solved in slices of this many elements: the temporaries then stay in the
 # processor cache and the allocator reuses their memory, which is several times faster than
-# whole-array temporaries of a million readings.
-_CHUNK = 8192
+# whole-array temporaries of a million readings. With slices of 6000 elements or more the
+# C allocator (glibc) hands the freed temporaries back to the system after each slice and
+# every new one page-faults again: about 100,000 faults per million readings.
+_CHUNK = 4096
 
 
 def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shape,
@@ -733,7 +749,8 @@ def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shap
             # One block for all outputs: a single large allocation is mapped with huge pages,
             # where fourteen separate ones cost a page fault every 4 KiB when first written.
             values = np.empty((len(_OUTPUT_NAMES), size))
-            for start in range(0, size, _CHUNK):
+
+            def solve_slice(start):
                 part = slice(start, start + _CHUNK)
                 chunk = _solve_numeric(
                     t[part], s[part], p[part], {n: v[part] for n, v in given.items()},
@@ -743,6 +760,9 @@ def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shap
                 )
                 for out, value in zip(values, chunk, strict=True):
                     out[part] = value
+
+            for start in range(0, size, _CHUNK):
+                solve_slice(start)
     if scalar:
         outputs = [np.float64(v) for v in values]
         inputs = (np.float64(t), np.float64(s), np.float64(p))
