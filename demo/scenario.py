@@ -99,8 +99,41 @@ TANKS: list[dict[str, Any]] = [
     },
 ]
 
-# Who gets the demo's alert mail: an address under a reserved example domain (RFC 2606).
-ALERT_RECIPIENTS: list[str] = ["manager@orrowen-bay.example"]
+# Who gets the demo's alert mail: invented people at a reserved example domain (RFC 2606).
+ALERT_RECIPIENTS: list[str] = [
+    "water-quality@orrowen-bay.example",
+    "night-shift@orrowen-bay.example",
+]
+
+# Larval batches, placed relative to the end of the simulated week (hours before it). The
+# first was stocked into the own-header tank before the mid-week upwelling, so its record
+# shows the hours its tank spent below the floor; the second was stocked after it.
+BATCHES: list[dict[str, Any]] = [
+    {
+        "id": "oyster-run-a",
+        "species": "Pacific oyster (Crassostrea gigas)",
+        "tank_id": "larvae-3",
+        "started_hours_before_end": 120.0,
+        "count_start": 12_000_000,
+        "notes": "Invented demo batch: stocked before the upwelling.",
+    },
+    {
+        "id": "oyster-run-b",
+        "species": "Pacific oyster (Crassostrea gigas)",
+        "tank_id": "larvae-1",
+        "started_hours_before_end": 30.0,
+        "count_start": 15_000_000,
+        "notes": "Invented demo batch: stocked after the upwelling had passed.",
+    },
+]
+
+# Bottle samples of the intake, one a day at about 09:00 local time, analysed for total
+# alkalinity and pH (total scale) at the lab's temperature. The lab's scatter is invented.
+SAMPLE_LOCAL_HOUR = 9
+SAMPLE_LAB_TEMPERATURE_C = 25.0
+SAMPLE_ALKALINITY_SD_UMOL_KG = 4.0
+SAMPLE_PH_SD = 0.004
+SAMPLE_METHOD = "demo lab: open-cell titration for alkalinity, dye pH at 25 C"
 
 ADMIN_KEY_LABEL = "demo admin"
 VIEWER_KEY_LABEL = "demo viewer"

@@ -11,8 +11,12 @@ The week holds three things a hatchery manager sees on a real coast:
 - a day-night cycle: the water warms in the afternoon, and photosynthesis draws
   CO2 down by day while respiration puts it back at night;
 - an upwelling event, about two days of cold, CO2-rich, low-saturation water
-  (in-situ aragonite saturation well below 1.5), still under way when the week ends;
-- a day of rain that freshens the intake by several salinity units.
+  (in-situ aragonite saturation well below 1.5) in the middle of the week, that has
+  passed well before the week ends, so its alerts are raised and cleared;
+- a day of rain that freshens the intake by several salinity units;
+- a milder upwelling pulse on the last day, still under way when the week ends, so
+  the demo opens with something worth reading: the most exposed tank below its floor
+  while the others stay above.
 
 Everything is invented for the demo; nothing here is a measurement. All
 functions are pure: given the same end time and seed they return the same
@@ -49,6 +53,10 @@ HIGHEST_PCO2_LOCAL_HOUR = 6.0
 UPWELLING_COOLING_C = 3.6
 UPWELLING_SALINITY_RISE = 0.5
 UPWELLING_PCO2_UATM = 1100.0
+# The last day's pulse: a weaker upwelling, enough to take the most exposed tank (the
+# unbuffered nursery, fed straight from the intake) below its floor.
+LATE_PULSE_COOLING_C = 1.5
+LATE_PULSE_PCO2_UATM = 620.0
 # Rain: fresher and slightly cooler; runoff brings some CO2 with it.
 RAIN_FRESHENING = 5.0
 RAIN_COOLING_C = 0.6
@@ -97,11 +105,15 @@ class Episode:
         return start, stop
 
 
-# The upwelling began about two days before the week ends and is still at full strength at
-# its end, so the demo opens on a live event: tanks below their floor, alerts active, dose
-# advice worth reading.
-UPWELLING = Episode("upwelling", starts_hours_before_end=46.0, duration_hours=56.0, ramp_hours=8.0)
+# The upwelling comes after the rain and has passed almost two days before the week ends:
+# long enough for the tanks' alerts to raise, and for the water to recover above their
+# clear levels so the alerts clear.
+UPWELLING = Episode("upwelling", starts_hours_before_end=100.0, duration_hours=56.0, ramp_hours=8.0)
 RAIN = Episode("rain", starts_hours_before_end=150.0, duration_hours=24.0, ramp_hours=4.0)
+# Began in the last night and still under way at the end of the week.
+LATE_PULSE = Episode(
+    "late pulse", starts_hours_before_end=14.0, duration_hours=30.0, ramp_hours=4.0
+)
 
 
 def _raised_cosine(fraction: np.ndarray) -> np.ndarray:
@@ -140,11 +152,13 @@ class StationSeries:
 
 @dataclass(frozen=True)
 class DemoWeek:
-    """The simulated week of every station, and what the header dose adds."""
+    """The simulated week of every station, what the header dose adds, and the intake's
+    bottle samples (in the API's lab-sample shape)."""
 
     end: datetime
     stations: dict[str, StationSeries] = field(default_factory=dict)
     header_alkalinity_added: float = 0.0
+    intake_samples: list[dict[str, Any]] = field(default_factory=list)
 
 
 def week_end(now: datetime | None = None) -> datetime:
@@ -189,6 +203,7 @@ def intake_drivers(
     hour = local_hours(times, timezone)
     before_end = hours_before(times, end)
     upwelling = UPWELLING.weight(before_end)
+    pulse = LATE_PULSE.weight(before_end)
     rain = RAIN.weight(before_end)
     size = len(times)
 
@@ -197,6 +212,7 @@ def intake_drivers(
         BASE_TEMPERATURE_C
         + DIURNAL_TEMPERATURE_AMPLITUDE_C * daily_warmth
         - UPWELLING_COOLING_C * upwelling
+        - LATE_PULSE_COOLING_C * pulse
         - RAIN_COOLING_C * rain
         + _wander(rng, size, 0.15)
     )
@@ -217,6 +233,9 @@ def intake_drivers(
     pco2 = (1.0 - upwelling) * surface_pco2 + upwelling * (
         UPWELLING_PCO2_UATM + 0.5 * DIURNAL_PCO2_AMPLITUDE_UATM * daily_co2
     )
+    pco2 = (1.0 - pulse) * pco2 + pulse * (
+        LATE_PULSE_PCO2_UATM + 0.5 * DIURNAL_PCO2_AMPLITUDE_UATM * daily_co2
+    )
     return {"temperature": temperature, "salinity": salinity, "pco2": pco2}
 
 
@@ -231,6 +250,54 @@ def glass_electrode_ph(
     """The NBS-scale pH a glass electrode in this water would show, with its noise."""
     ph_nbs = np.asarray(state.ph_nbs, dtype=float)
     return ph_nbs + rng.normal(0.0, noise_sd, ph_nbs.shape)
+
+
+def bottle_samples(
+    times: list[datetime],
+    timezone: str,
+    water: chemistry.CarbonateState,
+    rng: np.random.Generator,
+) -> list[dict[str, Any]]:
+    """One bottle sample a day at ``scenario.SAMPLE_LOCAL_HOUR``: the true water's salinity,
+    its alkalinity and its pH (total scale) at the lab's temperature, each with a lab's
+    scatter. Two carbonate parameters per sample, so each checks the pH sensor."""
+    zone = ZoneInfo(timezone)
+    local = [t.astimezone(zone) for t in times]
+    picks = [
+        i
+        for i, t in enumerate(local)
+        if t.hour == scenario.SAMPLE_LOCAL_HOUR and t.minute == 0 and 0 < i < len(times) - 1
+    ]
+    salinity = np.asarray(water.salinity, dtype=float)[picks]
+    in_lab = chemistry.at_temperature(
+        chemistry.solve(
+            temperature=np.asarray(water.temperature, dtype=float)[picks],
+            salinity=salinity,
+            alkalinity=np.asarray(water.alkalinity, dtype=float)[picks],
+            dic=np.asarray(water.dic, dtype=float)[picks],
+            carbonic=scenario.SITE["carbonic_constants"],
+        ),
+        scenario.SAMPLE_LAB_TEMPERATURE_C,
+    )
+    alkalinity = np.asarray(water.alkalinity, dtype=float)[picks] + rng.normal(
+        0.0, scenario.SAMPLE_ALKALINITY_SD_UMOL_KG, len(picks)
+    )
+    ph_total = np.asarray(in_lab.ph_total, dtype=float) + rng.normal(
+        0.0, scenario.SAMPLE_PH_SD, len(picks)
+    )
+    return [
+        {
+            "collected_at": local[i],
+            "salinity": round(float(salinity[k]), 2),
+            "temperature_c": scenario.SAMPLE_LAB_TEMPERATURE_C,
+            "alkalinity_umol_kg": round(float(alkalinity[k]), 1),
+            "ph": round(float(ph_total[k]), 4),
+            "ph_scale": "total",
+            "method": scenario.SAMPLE_METHOD,
+            "notes": "Invented demo sample.",
+        }
+        for k, i in enumerate(picks)
+    ]
 
 
 def _series(
@@ -282,8 +349,10 @@ def simulate_week(
     """
     end = week_end() if end is None else week_end(end)
     times = timeline(end)
-    intake_rng, header_rng, intake_sensor_rng, header_sensor_rng = (
-        np.random.default_rng(child) for child in np.random.SeedSequence(seed).spawn(4)
+    # Children of one seed sequence do not depend on how many are spawned, so the fifth
+    # (the lab's scatter) leaves the first four, and so the readings, as they were.
+    intake_rng, header_rng, intake_sensor_rng, header_sensor_rng, lab_rng = (
+        np.random.default_rng(child) for child in np.random.SeedSequence(seed).spawn(5)
     )
 
     drivers = intake_drivers(times, end=end, timezone=timezone, rng=intake_rng)
@@ -309,4 +378,9 @@ def simulate_week(
         ),
     }
     added = float(np.mean(np.asarray(dosed.alkalinity) - np.asarray(intake.alkalinity)))
-    return DemoWeek(end=end, stations=stations, header_alkalinity_added=added)
+    return DemoWeek(
+        end=end,
+        stations=stations,
+        header_alkalinity_added=added,
+        intake_samples=bottle_samples(times, timezone, intake, lab_rng),
+    )

@@ -93,13 +93,59 @@ def test_upwelling_brings_intake_saturation_well_below_the_floor(
     assert np.all(np.asarray(derived.omega_aragonite)[core] < OMEGA_FLOOR)
 
 
-def test_outside_the_upwelling_intake_is_mostly_above_the_floor(
+def test_outside_the_upwelling_and_the_late_pulse_intake_is_mostly_above_the_floor(
     week: simulator.DemoWeek,
 ) -> None:
     intake = week.stations[scenario.INTAKE_STATION_ID]
-    upwelling = _in_window(intake, simulator.UPWELLING.whole(week.end))
-    above = intake.omega_aragonite[~upwelling] >= OMEGA_FLOOR
+    disturbed = _in_window(intake, simulator.UPWELLING.whole(week.end)) | _in_window(
+        intake, simulator.LATE_PULSE.whole(week.end)
+    )
+    above = intake.omega_aragonite[~disturbed] >= OMEGA_FLOOR
     assert above.mean() > 0.9
+
+
+def _tank_omega(week: simulator.DemoWeek, tank: dict) -> np.ndarray:
+    """Predicted omega aragonite of a demo tank: its source water, its treatment, closed
+    heating to its culture temperature, computed here with the engine."""
+    source = week.stations[tank["source_station_id"]]
+    water = chemistry.solve(
+        temperature=source.temperature_c,
+        salinity=source.salinity,
+        alkalinity=source.alkalinity,
+        pco2=source.pco2_uatm,
+    )
+    treatment = tank.get("treatment")
+    if treatment:
+        water = chemistry.add_chemical(water, treatment["chemical"], treatment["dose_mg_per_l"])
+    return np.asarray(
+        chemistry.at_temperature(water, tank["culture_temperature_c"]).omega_aragonite
+    )
+
+
+def test_upwelling_passes_before_the_week_ends_and_a_milder_pulse_is_under_way(
+    week: simulator.DemoWeek,
+) -> None:
+    """The demo's story: tanks go below the floor in the upwelling and recover above the
+    default clear level (floor + 0.2) well before the end; on the last day only the
+    most exposed tank is below its floor again."""
+    from app.alerts.rules import DEFAULT_OMEGA_CLEAR_MARGIN
+
+    intake = week.stations[scenario.INTAKE_STATION_ID]
+    _, upwelling_stop = simulator.UPWELLING.whole(week.end)
+    pulse_start, _ = simulator.LATE_PULSE.whole(week.end)
+    assert timedelta(hours=24) <= pulse_start - upwelling_stop
+    recovered = np.array([upwelling_stop <= t < pulse_start for t in intake.observed_at])
+    last_hour = np.array([week.end - t < timedelta(hours=1) for t in intake.observed_at])
+    core = _in_window(intake, simulator.UPWELLING.full_strength(week.end))
+    below_at_end = []
+    for tank in scenario.TANKS:
+        omega = _tank_omega(week, tank)
+        assert np.all(omega[recovered] > OMEGA_FLOOR + DEFAULT_OMEGA_CLEAR_MARGIN), tank["id"]
+        if np.all(omega[last_hour] < OMEGA_FLOOR):
+            below_at_end.append(tank["id"])
+        if tank["source_station_id"] == scenario.INTAKE_STATION_ID:
+            assert (omega[core] < OMEGA_FLOOR).sum() >= 12 * 12, tank["id"]
+    assert below_at_end == ["nursery-1"]
 
 
 def test_upwelling_water_is_colder(week: simulator.DemoWeek) -> None:
@@ -166,6 +212,66 @@ def test_cli_default_seed_is_the_simulator_default() -> None:
     assert demo_command.DEFAULT_SEED == simulator.DEFAULT_SEED
 
 
+def _check_the_demo_story_through_the_api(engine, viewer_key: str) -> None:
+    """What a manager opening the demo sees: the upwelling's alerts raised and cleared in
+    the notifications list, one tank below its floor now, samples that give an alkalinity
+    line and pH offsets, and a batch that lived through the upwelling."""
+    import httpx
+    from anyio.from_thread import start_blocking_portal
+
+    from app.main import create_app
+    from app.settings import Settings
+    from tests.conftest import BASE_URL, _PortalASGITransport
+
+    site = scenario.SITE["id"]
+    intake = scenario.INTAKE_STATION_ID
+    viewer = {"Authorization": f"Bearer {viewer_key}"}
+    settings = Settings(_env_file=None, run_worker_in_serve=False)
+    app = create_app(settings, engine=engine)
+    with (
+        start_blocking_portal() as portal,
+        httpx.Client(transport=_PortalASGITransport(app, portal), base_url=BASE_URL) as client,
+    ):
+        notifications = client.get(f"/api/v1/sites/{site}/notifications", headers=viewer)
+        assert notifications.status_code == 200, notifications.text
+        listed = notifications.json()
+        listed = listed["items"] if isinstance(listed, dict) else listed
+        text = repr(listed)
+        for tank_id in ("larvae-3", "nursery-1"):
+            name = next(t["name"] for t in scenario.TANKS if t["id"] == tank_id)
+            assert f"ALERT: predicted omega aragonite in the tank, tank {name}" in text
+            assert f"CLEARED: predicted omega aragonite in the tank, tank {name}" in text
+
+        alerts = client.get(f"/api/v1/sites/{site}/alerts", params={"state": "open"},
+                            headers=viewer).json()
+        assert [a.get("tank_id") for a in alerts] == ["nursery-1"]
+
+        samples = client.get(f"/api/v1/sites/{site}/stations/{intake}/lab-samples",
+                             headers=viewer).json()
+        assert sum(s["alkalinity_umol_kg"] is not None for s in samples) >= 5
+        line = client.get(f"/api/v1/sites/{site}/stations/{intake}/alkalinity-line",
+                          headers=viewer)
+        assert line.status_code == 200, line.text
+        # The samples scatter about the scenario's invented line (salinity 26-33).
+        assert abs(line.json()["slope"] - scenario.INTAKE_ALKALINITY_LINE["slope"]) < 5.0
+        check = client.get(f"/api/v1/sites/{site}/stations/{intake}/ph-check",
+                           headers=viewer).json()
+        offsets = [o["offset"] for o in check["offsets"] if o["offset"] is not None]
+        assert len(offsets) >= 5
+        # Sensor noise (0.01) and the lab's (0.004): offsets of a few hundredths at most.
+        assert all(abs(offset) < 0.05 for offset in offsets)
+
+        exposure = {
+            batch["id"]: client.get(f"/api/v1/sites/{site}/batches/{batch['id']}/exposure",
+                                    headers=viewer).json()
+            for batch in scenario.BATCHES
+        }
+        early, late = (exposure[b["id"]] for b in scenario.BATCHES)
+        assert early["run"]["hours_below_floor"] > 6.0
+        assert early["run"]["deficit_omega_hours"] > 0.0
+        assert late["run"]["hours_below_floor"] == 0.0
+
+
 def _count(engine, table) -> int:
     from sqlalchemy import func, select
 
@@ -222,6 +328,8 @@ def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
             recipients = connection.scalars(select(AlertRule.recipients)).all()
         assert recipients  # every tank got its default rules
         assert all(value == scenario.ALERT_RECIPIENTS for value in recipients)
+        assert all(address.endswith(".example") for address in scenario.ALERT_RECIPIENTS)
+        _check_the_demo_story_through_the_api(engine, viewer_key)
 
         assert main(["demo"]) == 0
         second = capsys.readouterr().out

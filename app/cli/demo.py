@@ -4,10 +4,15 @@ The demo goes through the same doors as real data: the scenario is validated by 
 API's create schemas and stored by the sites data-access functions, and the readings
 go through ``ingest_readings``, the one code path of the API and the CSV importer.
 
-Running it again keeps what is stored and only adds: the site, stations and tanks
-are left as they are (a message says so), the readings since the last run are
-simulated and stored (nothing twice), and a fresh pair of admin and viewer keys
-replaces the previous demo pair.
+The first run also records the intake's bottle samples (through the same path as
+``POST .../lab-samples``, so the pH check and its drift alert are judged) and the
+larval batches. Every run ends with one alert sweep, so the silent-sensor and reminder
+state is current when the service starts.
+
+Running it again keeps what is stored and only adds: the site, stations, tanks,
+samples and batches are left as they are (a message says so), the readings since the
+last run are simulated and stored (nothing twice), and a fresh pair of admin and
+viewer keys replaces the previous demo pair.
 """
 
 from __future__ import annotations
@@ -22,7 +27,7 @@ if TYPE_CHECKING:
     from sqlalchemy.orm import Session
 
     from app.settings import Settings
-    from app.sites.models import Station
+    from app.sites.models import Site, Station
     from demo.simulator import DemoWeek
 
 # Kept equal to demo.simulator.DEFAULT_SEED (tests/test_demo.py checks), so that the
@@ -41,7 +46,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         description=(
             "Migrate the database, create the demo hatchery (an invented site with an intake, "
             "a treated header, three larval tanks and a nursery tank), load a week of "
-            "simulated 5-minute readings ending now, and print an admin and a viewer key. "
+            "simulated 5-minute readings ending now with bottle samples and larval batches, "
+            "and print an admin and a viewer key. "
             "Run again, it keeps what is stored, adds the readings since the last run and "
             "replaces the demo keys."
         ),
@@ -97,7 +103,8 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
     site_id = scenario.SITE["id"]
     site = service.get_site(session=session, site_id=site_id)
     lines: list[str] = []
-    if site is None:
+    created = site is None
+    if created:
         site = service.create_site(session=session, data=SiteCreate(**scenario.SITE))
         stations = [
             service.create_station(session=session, site=site, data=StationCreate(**definition))
@@ -145,6 +152,9 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
             + "."
         )
 
+    if created:
+        lines.extend(_samples_and_batches(session, site=site, week=week, now=now))
+    lines.append(_sweep(session, now=now))
     lines.extend(_fresh_keys(session))
     if device_keys:
         intake_key = device_keys.get(scenario.INTAKE_STATION_ID)
@@ -170,6 +180,59 @@ def _address_default_rules(session: Session, *, site_id: str) -> None:
     recipients = AlertRuleUpdate(recipients=scenario.ALERT_RECIPIENTS)
     for rule in list_rules(session=session, site_id=site_id):
         update_rule(session=session, rule=rule, data=recipients)
+
+
+def _samples_and_batches(
+    session: Session, *, site: Site, week: DemoWeek, now: dt.datetime
+) -> list[str]:
+    """The intake's bottle samples and the larval batches of the scenario.
+
+    Samples go through ``record_sample``, the path of the API, so each is checked against
+    the pH sensor as it is stored; they come after the readings they are compared with.
+    """
+    from app.batches.schemas import BatchCreate
+    from app.batches.service import create_batch
+    from app.samples.drift import record_sample
+    from app.samples.schemas import LabSampleCreate
+    from app.sites import service
+    from demo import scenario
+
+    intake = service.get_station(
+        session=session, site_id=site.id, station_id=scenario.INTAKE_STATION_ID
+    )
+    for sample in week.intake_samples:
+        record_sample(
+            session=session,
+            site=site,
+            station=intake,
+            data=LabSampleCreate(**sample),
+            now=now,
+        )
+    for definition in scenario.BATCHES:
+        fields = {k: v for k, v in definition.items() if k != "started_hours_before_end"}
+        started_at = week.end - dt.timedelta(hours=definition["started_hours_before_end"])
+        create_batch(session=session, site=site, data=BatchCreate(started_at=started_at, **fields))
+    return [
+        f"  {site.id}/{scenario.INTAKE_STATION_ID}: {len(week.intake_samples)} bottle samples "
+        "(alkalinity and pH) recorded.",
+        f"  {len(scenario.BATCHES)} larval batches: "
+        + ", ".join(f"{b['id']} in {b['tank_id']}" for b in scenario.BATCHES)
+        + ".",
+    ]
+
+
+def _sweep(session: Session, *, now: dt.datetime) -> str:
+    """One pass of the worker's alert sweep (silent sensors, reminders) at ``now``."""
+    from sqlalchemy import select
+
+    from app.alerts import state_machine
+    from app.alerts.evaluation import sweep
+    from app.alerts.models import Alert
+
+    sweep(session=session, now=now)
+    open_states = [s.value for s in state_machine.OPEN_ALERT_STATES]
+    open_count = len(session.scalars(select(Alert.id).where(Alert.state.in_(open_states))).all())
+    return f"Alert sweep done: {open_count} alerts open now (see the web page or /alerts)."
 
 
 def _demo_device_id(session: Session, station: Station) -> str | None:
