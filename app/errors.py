@@ -68,6 +68,8 @@ def _problem_sentence(problem: dict[str, Any]) -> str:
         where, field = "", ".".join(location)
     message = str(problem.get("msg", "is invalid")).removeprefix("Value error, ")
     kind = problem.get("type", "")
+    if kind == "missing" and location == ["body"]:
+        return "the request body is empty; send a JSON object"
     if kind == "missing":
         return f"{field or where} is required" + (f" (in the {where})" if field and where else "")
     if kind == "extra_forbidden":

@@ -120,6 +120,22 @@ class ReadingIn(BaseModel):
         return value.astimezone(dt.UTC)
 
     @field_validator(
+        "temperature_c",
+        "salinity",
+        "ph",
+        "alkalinity_umol_kg",
+        "alkalinity_mg_l_caco3",
+        mode="before",
+    )
+    @classmethod
+    def _not_a_boolean(cls, value: Any, info: ValidationInfo) -> Any:
+        # Lax float parsing would take true as 1.0: a sensor sending a flag where a
+        # number belongs is a fault, not pH 1.
+        if isinstance(value, bool):
+            raise ValueError(f"{_range_sentence(info.field_name)}; got {str(value).lower()}")
+        return value
+
+    @field_validator(
         "temperature_c", "salinity", "ph", "alkalinity_umol_kg", "alkalinity_mg_l_caco3"
     )
     @classmethod
