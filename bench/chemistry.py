@@ -12,6 +12,7 @@ Run with ``python -m bench chemistry``.
 
 from __future__ import annotations
 
+import os
 import time
 from collections.abc import Callable
 
@@ -110,6 +111,9 @@ def main() -> bool:
             scalar < SCALAR_GOAL_SECONDS,
         ),
     ]
+    # Other work on the machine slows the solves more than the short floor; say how busy it was.
+    load = ", ".join(f"{value:.1f}" for value in os.getloadavg())
+    print(f"load average {load} on {os.cpu_count()} processors")
     print(f"numpy.exp over {READINGS:,} float64: {floor * 1e3:.2f} ms (the floor)")
     for name, measured, goal, met in results:
         print(f"{name:<26} {measured:<36} goal {goal:<10} {'pass' if met else 'MISS'}")
