@@ -19,10 +19,11 @@ import logging
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 from typing import Any
 
 import numpy as np
-from sqlalchemy import Connection, Select, and_, or_, select, text, update
+from sqlalchemy import Connection, String, and_, select, text, type_coerce, update
 from sqlalchemy.orm import Session
 
 from app.readings.models import Reading
@@ -118,29 +119,54 @@ def _chunks(items: Sequence[Any], size: int = CHUNK) -> list[Sequence[Any]]:
     return [items[start : start + size] for start in range(0, len(items), size)]
 
 
+_MATCH_COLUMNS = (
+    Reading.id,
+    Reading.observed_at,
+    Reading.reading_id,
+    Reading.temperature_c,
+    Reading.salinity,
+    Reading.ph,
+    Reading.ph_scale,
+    Reading.alkalinity_input_umol_kg,
+)
+
+
 def _stored_matches(
     session: Session, *, station_pk: int, source: str, candidates: Sequence[_Candidate]
 ) -> list[Any]:
     """Stored readings of this station and source sharing a time or id with a candidate."""
-    rows: list[Any] = []
-    for chunk in _chunks(candidates):
-        times = [c.reading.observed_at for c in chunk]
-        ids = [c.reading.reading_id for c in chunk if c.reading.reading_id is not None]
-        key = Reading.observed_at.in_(times)
-        if ids:
-            key = or_(key, Reading.reading_id.in_(ids))
-        query = select(
-            Reading.id,
-            Reading.observed_at,
-            Reading.reading_id,
-            Reading.temperature_c,
-            Reading.salinity,
-            Reading.ph,
-            Reading.ph_scale,
-            Reading.alkalinity_input_umol_kg,
-        ).where(Reading.station_pk == station_pk, Reading.source == source, key)
-        rows.extend(session.execute(query).all())
-    return rows
+    times = [c.reading.observed_at for c in candidates]
+    wanted = set(times)  # aware datetimes hash by their UTC instant, whatever the offset
+    this_sensor = (Reading.station_pk == station_pk, Reading.source == source)
+    # Readings usually arrive in time order, so the span of a request holds few stored
+    # rows or none: one range scan of the unique index beats binding every time. A span
+    # that turns out to be crowded (a backfill between stored readings) is looked up
+    # time by time instead.
+    crowded = 2 * len(candidates) + 100
+    in_span = session.execute(
+        select(*_MATCH_COLUMNS)
+        .where(*this_sensor, Reading.observed_at >= min(times), Reading.observed_at <= max(times))
+        .limit(crowded + 1)
+    ).all()
+    if len(in_span) <= crowded:
+        rows = [row for row in in_span if row.observed_at in wanted]
+    else:
+        rows = []
+        for chunk in _chunks(times):
+            rows.extend(
+                session.execute(
+                    select(*_MATCH_COLUMNS).where(*this_sensor, Reading.observed_at.in_(chunk))
+                ).all()
+            )
+    ids = [c.reading.reading_id for c in candidates if c.reading.reading_id is not None]
+    for chunk in _chunks(ids):
+        rows.extend(
+            session.execute(
+                select(*_MATCH_COLUMNS).where(*this_sensor, Reading.reading_id.in_(chunk))
+            ).all()
+        )
+    unique = {row.id: row for row in rows}
+    return list(unique.values())
 
 
 def _classify_against_stored(
@@ -354,11 +380,22 @@ def _qc_limits(station: Station) -> Mapping[str, QcLimits]:
         return limits_with_overrides(None)
 
 
-def _context_query(station_pk: int, start: dt.datetime, end: dt.datetime) -> Select[Any]:
-    return (
+def _context_columns(
+    session: Session, station_pk: int, start: dt.datetime, end: dt.datetime
+) -> dict[str, np.ndarray]:
+    """The station's stored readings in [start, end], time order, as numpy columns.
+
+    QC reads about a day of neighbours for every request, so the rows are taken as plain
+    tuples and turned into arrays in bulk: per-row datetime objects (and, on SQLite,
+    parsing each stored time in Python) cost more than the QC itself.
+    """
+    sqlite = session.get_bind().dialect.name == "sqlite"
+    # SQLite keeps naive UTC text; numpy parses a column of it in C.
+    observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
+    query = (
         select(
             Reading.id,
-            Reading.observed_at,
+            observed,
             Reading.temperature_c,
             Reading.salinity,
             Reading.ph,
@@ -373,6 +410,50 @@ def _context_query(station_pk: int, start: dt.datetime, end: dt.datetime) -> Sel
         )
         .order_by(Reading.observed_at, Reading.id)
     )
+    rows = session.execute(query).all()
+    names = (
+        "id",
+        "observed_at",
+        "temperature_c",
+        "salinity",
+        "ph",
+        "alkalinity_input_umol_kg",
+        "alkalinity_source",
+        "omega_aragonite",
+        *QC_COLUMNS,
+    )
+    if not rows:
+        columns: dict[str, Sequence[Any]] = {name: () for name in names}
+    else:
+        columns = dict(zip(names, zip(*rows, strict=True), strict=True))
+    if sqlite:
+        micros = np.array(columns["observed_at"], dtype="datetime64[us]").astype(np.int64)
+        seconds = micros / 1e6
+    else:
+        seconds = np.array([_epoch_seconds(t) for t in columns["observed_at"]], dtype=float)
+    out: dict[str, np.ndarray] = {
+        "id": np.array(columns["id"], dtype=np.int64),
+        "seconds": seconds,
+        "from_station": np.array(
+            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
+            dtype=bool,
+        ),
+        "available": np.array(
+            [value is not None for value in columns["omega_aragonite"]], dtype=bool
+        ),
+    }
+    for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
+        out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
+    for name in QC_COLUMNS:
+        out[name] = np.array(columns[name], dtype=np.int64)
+    return out
+
+
+_EPOCH = dt.datetime(1970, 1, 1, tzinfo=dt.UTC)
+
+
+def _epoch_seconds(moment: dt.datetime) -> float:
+    return (moment - _EPOCH).total_seconds()
 
 
 def _quality_control(
@@ -398,33 +479,24 @@ def _quality_control(
     window = dt.timedelta(hours=max(lim.rate_of_change_window_hours for lim in limits.values()))
     gap = dt.timedelta(minutes=max(lim.max_gap_minutes for lim in limits.values()))
     first, last = min(times), max(times)
-    stored = session.execute(
-        _context_query(station.pk, first - window - gap, last + window + gap)
-    ).all()
-    affected_from, affected_to = first - gap, last + window
+    stored = _context_columns(session, station.pk, first - window - gap, last + window + gap)
+    affected_from, affected_to = _epoch_seconds(first - gap), _epoch_seconds(last + window)
 
-    count = len(stored)
-    epoch = dt.datetime(1970, 1, 1, tzinfo=dt.UTC)
-    seconds = np.array(
-        [(row.observed_at - epoch).total_seconds() for row in stored]
-        + [(t - epoch).total_seconds() for t in times]
-    )
-    from_station = np.array(
-        [row.alkalinity_source in ("fixed", "salinity_line") for row in stored]
-        + [source in ("fixed", "salinity_line") for source in alkalinity_source],
-        dtype=bool,
-    )
-    available = np.concatenate(
+    count = stored["id"].size
+    seconds = np.concatenate([stored["seconds"], [_epoch_seconds(t) for t in times]])
+    from_station = np.concatenate(
         [
-            np.array([row.omega_aragonite is not None for row in stored], dtype=bool),
-            derived_available,
+            stored["from_station"],
+            np.array(
+                [source in ("fixed", "salinity_line") for source in alkalinity_source],
+                dtype=bool,
+            ),
         ]
     )
+    available = np.concatenate([stored["available"], derived_available])
 
     def column(name: str, new: np.ndarray) -> np.ndarray:
-        return np.concatenate(
-            [np.array([_float_or_nan(getattr(row, name)) for row in stored]), new]
-        )
+        return np.concatenate([stored[name], new])
 
     result = run_qc(
         times=seconds,
@@ -444,13 +516,17 @@ def _quality_control(
         "qc_derived": result.derived,
         "qc_overall": result.overall,
     }
-    changes: list[dict[str, Any]] = []
-    for i, row in enumerate(stored):
-        if not affected_from <= row.observed_at <= affected_to:
-            continue
-        new_flags = {name: int(flags[name][i]) for name in QC_COLUMNS}
-        if any(getattr(row, name) != value for name, value in new_flags.items()):
-            changes.append({"id": row.id, **new_flags})
+    old_seconds = stored["seconds"]
+    changed = (old_seconds >= affected_from) & (old_seconds <= affected_to)
+    changed &= (
+        np.any([stored[name] != flags[name][:count] for name in QC_COLUMNS], axis=0)
+        if count
+        else np.zeros(0, dtype=bool)
+    )
+    changes: list[dict[str, Any]] = [
+        {"id": int(stored["id"][i]), **{name: int(flags[name][i]) for name in QC_COLUMNS}}
+        for i in np.flatnonzero(changed)
+    ]
     new_reading_flags = {name: flags[name][count:] for name in QC_COLUMNS}
     return new_reading_flags, changes
 
@@ -472,16 +548,37 @@ def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetim
     if dialect != "sqlite":  # pragma: no cover - the service supports these two databases
         raise RuntimeError(f"unsupported database dialect {dialect!r}")
 
-    from sqlalchemy.dialects.sqlite import insert
-
-    table = Reading.__table__
-    # A Core executemany: SQLAlchemy batches it into multi-row INSERTs ("insertmanyvalues")
-    # with a cached compilation, and RETURNING gives back only the rows really inserted.
-    statement = insert(table).on_conflict_do_nothing().returning(table.c.id, table.c.observed_at)
     for chunk in _chunks(rows, INSERT_CHUNK):
-        for row_id, observed_at in connection.execute(statement, list(chunk)).all():
-            stored[observed_at] = row_id
+        stored.update(_insert_sqlite(connection, list(chunk)))
     return stored
+
+
+def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
+    """One multi-row INSERT ... ON CONFLICT DO NOTHING RETURNING, bound by the driver.
+
+    The values go through each column type's own bind processor once per column, so
+    stored times have exactly the text SQLAlchemy writes (the unique index compares
+    that text); SQLAlchemy's per-row parameter handling of an executemany cost more
+    than SQLite's insert itself.
+    """
+    table = Reading.__table__
+    dialect = connection.dialect
+    names = list(rows[0])
+    columns: list[list[Any]] = []
+    for name in names:
+        values = [row[name] for row in rows]
+        process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
+        columns.append([process(v) for v in values] if process is not None else values)
+    written = columns[names.index("observed_at")]
+    by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
+    one_row = f"({', '.join('?' for _ in names)})"
+    statement = (
+        f"INSERT INTO {table.name} ({', '.join(names)}) VALUES "
+        f"{', '.join(one_row for _ in rows)} ON CONFLICT DO NOTHING RETURNING id, observed_at"
+    )
+    parameters = tuple(value for row in zip(*columns, strict=True) for value in row)
+    result = connection.exec_driver_sql(statement, parameters).all()
+    return {by_text[observed_at]: row_id for row_id, observed_at in result}
 
 
 def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> list[Any]:
@@ -616,7 +713,8 @@ def ingest_readings(
             "station_pk": station.pk,
             "source": source,
             "reading_id": reading.reading_id,
-            "observed_at": reading.observed_at,
+            # In UTC, as the database gives it back (the alert rules read these rows).
+            "observed_at": reading.observed_at.astimezone(dt.UTC),
             "received_at": now,
             "temperature_c": reading.temperature_c,
             "salinity": reading.salinity,
@@ -654,26 +752,18 @@ def ingest_readings(
     result.stored_ids = sorted(inserted.values())
     result.rejected.sort(key=lambda item: item.index)
     session.flush()
-    _evaluate_alerts(session, station=station, ids=result.stored_ids, now=now)
-    return result
-
-
-def _evaluate_alerts(
-    session: Session, *, station: Station, ids: list[int], now: dt.datetime
-) -> None:
-    """Hand the new readings that passed QC (overall flag not 4) to the alert rules."""
-    if not ids:
-        return
-    from app.alerts.evaluation import evaluate_after_ingest
-
-    readings: list[Reading] = []
-    for chunk in _chunks(ids):
-        readings.extend(
-            session.scalars(
-                select(Reading)
-                .where(Reading.id.in_(chunk), Reading.qc_overall != int(QcFlag.FAIL))
-                .order_by(Reading.observed_at)
-            )
+    # The alert rules read the new readings' values; the rows just written hold them, so
+    # they are handed over as they are instead of loaded back as ORM objects.
+    passed = [
+        SimpleNamespace(
+            **row,
+            id=inserted[row["observed_at"]],
         )
-    if readings:
-        evaluate_after_ingest(session=session, station=station, readings=readings, now=now)
+        for row in rows
+        if row["observed_at"] in inserted and row["qc_overall"] != int(QcFlag.FAIL)
+    ]
+    if passed:
+        from app.alerts.evaluation import evaluate_after_ingest
+
+        evaluate_after_ingest(session=session, station=station, readings=passed, now=now)
+    return result
