@@ -410,7 +410,8 @@ def _context_columns(
         )
         .order_by(Reading.observed_at, Reading.id)
     )
-    rows = session.execute(query).all()
+    # Core rows straight from the connection: no ORM row processing for a day of rows.
+    rows = session.connection().execute(query).all()
     names = (
         "id",
         "observed_at",
@@ -703,11 +704,24 @@ def ingest_readings(
         derived_available=derived_available,
     )
 
-    def finite(value: float) -> float | None:
-        return float(value) if math.isfinite(value) else None
+    def finite(values: np.ndarray) -> list[float | None]:
+        # Column-wise: one list per column instead of a Python call per value.
+        return [
+            None if v != v else v for v in np.where(np.isfinite(values), values, np.nan).tolist()
+        ]
 
+    per_row = {
+        "alkalinity_used_umol_kg": finite(alkalinity),
+        "alkalinity_source": alkalinity_source,
+        "chemistry_version": [
+            CHEMISTRY_VERSION if ok else None for ok in derived_available.tolist()
+        ],
+        **{name: finite(derived[name]) for name in DERIVED_COLUMNS},
+        **{name: flags[name].astype(int).tolist() for name in QC_COLUMNS},
+    }
+    per_row_names = list(per_row)
     rows: list[dict[str, Any]] = []
-    for i, candidate in enumerate(candidates):
+    for candidate, values in zip(candidates, zip(*per_row.values(), strict=True), strict=True):
         reading = candidate.reading
         row: dict[str, Any] = {
             "station_pk": station.pk,
@@ -721,12 +735,8 @@ def ingest_readings(
             "ph": reading.ph,
             "ph_scale": reading.ph_scale,
             "alkalinity_input_umol_kg": candidate.alkalinity_input,
-            "alkalinity_used_umol_kg": finite(alkalinity[i]),
-            "alkalinity_source": alkalinity_source[i],
-            "chemistry_version": CHEMISTRY_VERSION if derived_available[i] else None,
         }
-        row.update({name: finite(derived[name][i]) for name in DERIVED_COLUMNS})
-        row.update({name: int(flags[name][i]) for name in QC_COLUMNS})
+        row.update(zip(per_row_names, values, strict=True))
         rows.append(row)
 
     # One order for every request, so that two inserting the same readings wait for each
