@@ -16,6 +16,7 @@ from sqlalchemy import Engine, text
 from app.db import make_engine, make_sessionmaker, read_only_engine
 from app.errors import ERROR_RESPONSES, validation_error_handler
 from app.limits import BodyLimitMiddleware, StrictJsonMiddleware
+from app.logredact import install_key_redaction
 from app.settings import Settings
 from app.web import install as install_web_pages
 
@@ -73,6 +74,7 @@ def _health_router() -> APIRouter:
 def create_app(settings: Settings | None = None, *, engine: Engine | None = None) -> FastAPI:
     """Build the app. ``engine`` lets tests share theirs; otherwise one is made from settings."""
     settings = settings or Settings()
+    install_key_redaction()
     owns_engine = engine is None
     engine = engine if engine is not None else make_engine(settings)
 
