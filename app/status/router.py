@@ -10,6 +10,7 @@ from fastapi import APIRouter, HTTPException, Query, status
 from app.auth.dependencies import ReaderDep
 from app.db import SessionDep, utcnow
 from app.sites.models import Site
+from app.status.days import StatusDayError, check_status_day
 from app.status.service import site_status
 
 router = APIRouter(tags=["status"])
@@ -25,7 +26,8 @@ router = APIRouter(tags=["status"])
         "QC counts by flag. Per tank: predicted omega aragonite at culture temperature with "
         "its standard uncertainty and the probability below the floor, time-weighted "
         "minutes below the floor that day, and dose advice. Open alerts, a fill-window hint "
-        "and the caution. `date` is the site-local day (default: today there)."
+        "and the caution. `date` is the site-local day (default: today there), from "
+        "2000-01-01 up to today; another day is refused with 422."
     ),
 )
 def get_site_status(
@@ -40,4 +42,9 @@ def get_site_status(
     site = session.get(Site, site_id)
     if site is None:
         raise HTTPException(status.HTTP_404_NOT_FOUND, f"No site with id {site_id!r}.")
-    return site_status(session=session, site=site, day=day, now=utcnow())
+    now = utcnow()
+    try:
+        check_status_day(day, timezone=site.timezone, now=now)
+    except StatusDayError as error:
+        raise HTTPException(status.HTTP_422_UNPROCESSABLE_CONTENT, str(error)) from None
+    return site_status(session=session, site=site, day=day, now=now)

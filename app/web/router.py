@@ -35,6 +35,7 @@ from app.samples.schemas import LabSampleCreate
 from app.sites import service as sites_service
 from app.sites.models import Site, Station, Tank
 from app.status.compute import DEFAULT_MAX_GAP
+from app.status.days import StatusDayError, check_status_day, site_today
 from app.status.service import QC_FAIL, omega_at_temperature, site_status
 from app.web.charts import Series, omega_week_svg
 
@@ -212,12 +213,26 @@ def site_overview(request: Request, site_id: str, session: SessionDep) -> Respon
 
 
 @router.get("/sites/{site_id}/days/{day}", response_class=HTMLResponse)
-def day_page(request: Request, site_id: str, day: dt.date, session: SessionDep) -> Response:
+def day_page(request: Request, site_id: str, day: str, session: SessionDep) -> Response:
     principal = _principal(request, session)
     if principal is None:
         return _to_sign_in()
     site = _site_or_404(session, site_id)
-    return _status_page(request, session, principal, site, day, "day.html")
+    now = utcnow()
+    today = site_today(site.timezone, now)
+    try:
+        local_day = dt.date.fromisoformat(day)
+    except ValueError:
+        problem = f"{day!r} is not a date; write it as YYYY-MM-DD, for example {today}."
+        return _render(request, "day_refused.html", principal, site=site, today=today,
+                       problem=problem, status_code=status.HTTP_422_UNPROCESSABLE_CONTENT)
+    try:
+        check_status_day(local_day, timezone=site.timezone, now=now)
+    except StatusDayError as error:
+        return _render(request, "day_refused.html", principal, site=site, today=today,
+                       problem=f"There is no status for {local_day}: {error}",
+                       status_code=status.HTTP_422_UNPROCESSABLE_CONTENT)
+    return _status_page(request, session, principal, site, local_day, "day.html")
 
 
 @router.post("/sites/{site_id}/alerts/{alert_id}/acknowledge")
