@@ -23,6 +23,10 @@ CALCULATION_CAUTION = (
 
 PAIR_FIELDS = ("ph", "alkalinity", "dic", "pco2")
 
+#: Standard uncertainty of a glass electrode's NBS-scale pH in seawater when the caller
+#: gives none: 0.05 (common practice; the same as a station's default ``ph_uncertainty``).
+NBS_GLASS_ELECTRODE_U_PH = 0.05
+
 
 class ChemistrySolveIn(BaseModel):
     """Temperature, salinity and exactly two of pH, alkalinity, DIC and pCO2."""
@@ -85,7 +89,17 @@ class ChemistrySolveIn(BaseModel):
     )
     u_temperature: float = Field(default=0.0, ge=0.0, le=10.0, allow_inf_nan=False)
     u_salinity: float = Field(default=0.0, ge=0.0, le=10.0, allow_inf_nan=False)
-    u_ph: float = Field(default=0.0, ge=0.0, le=1.0, allow_inf_nan=False)
+    u_ph: float | None = Field(
+        default=None,
+        ge=0.0,
+        le=1.0,
+        allow_inf_nan=False,
+        description=(
+            "Standard uncertainty of pH. Not given: 0.05 on the NBS scale (a glass "
+            "electrode, common practice), none on the other scales; the answer's "
+            "uncertainty_basis says which was used."
+        ),
+    )
     u_alkalinity: float = Field(default=0.0, ge=0.0, le=1000.0, allow_inf_nan=False)
     u_dic: float = Field(default=0.0, ge=0.0, le=1000.0, allow_inf_nan=False)
     u_pco2: float = Field(default=0.0, ge=0.0, le=10000.0, allow_inf_nan=False)
@@ -125,6 +139,9 @@ class ChemistrySolveOut(BaseModel):
     at_tank_temperature: WaterState | None
     alkalinity_umol_kg: float = Field(description="The alkalinity used, umol/kg.")
     warnings: list[str]
+    uncertainty_basis: list[str] = Field(
+        description="Which input uncertainties the uncertainties include, and which were assumed."
+    )
     chemistry_version: str
     caution: str = CALCULATION_CAUTION
 
@@ -135,6 +152,53 @@ def _floats(mapping: dict[str, object]) -> dict[str, float | None]:
         number = float(value)  # type: ignore[arg-type]
         out[name] = number if math.isfinite(number) else None
     return out
+
+
+def ph_uncertainty_used(sample: ChemistrySolveIn) -> tuple[float, str | None]:
+    """The pH uncertainty to propagate and a sentence saying how it was chosen."""
+    if sample.ph is None:
+        return 0.0, None
+    if sample.u_ph is not None:
+        return sample.u_ph, f"pH uncertainty {sample.u_ph:g} as given (u_ph)."
+    if sample.ph_scale == "nbs":
+        return NBS_GLASS_ELECTRODE_U_PH, (
+            f"pH uncertainty {NBS_GLASS_ELECTRODE_U_PH:g} assumed: u_ph was not given and "
+            "the pH is on the NBS scale (a glass electrode, common practice); send u_ph to "
+            "use your own."
+        )
+    return 0.0, (
+        f"No pH uncertainty included: u_ph was not given for pH on the {sample.ph_scale} "
+        "scale; send u_ph to include it."
+    )
+
+
+def _uncertainty_basis(
+    sample: ChemistrySolveIn, ph_sentence: str | None, alkalinity_given: bool
+) -> list[str]:
+    basis = [ph_sentence] if ph_sentence else []
+    given = [
+        f"{name} {value:g}"
+        for name, value, applies in (
+            ("u_temperature", sample.u_temperature, True),
+            ("u_salinity", sample.u_salinity, True),
+            ("u_alkalinity", sample.u_alkalinity, alkalinity_given),
+            ("u_dic", sample.u_dic, sample.dic is not None),
+            ("u_pco2", sample.u_pco2, sample.pco2 is not None),
+        )
+        if applies and value > 0
+    ]
+    basis.append(
+        "Other input uncertainties as given: " + ", ".join(given) + "."
+        if given
+        else "No other input uncertainty was given; each counts as zero."
+    )
+    basis.append(
+        "Uncertainty of the equilibrium constants included (Orr et al. 2018)."
+        if sample.include_constant_uncertainty
+        else "Uncertainty of the equilibrium constants left out (include_constant_uncertainty "
+        "is false)."
+    )
+    return basis
 
 
 def solve_sample(sample: ChemistrySolveIn) -> ChemistrySolveOut:
@@ -169,10 +233,11 @@ def solve_sample(sample: ChemistrySolveIn) -> ChemistrySolveOut:
         carbonic=sample.carbonic,
         boron=sample.boron,
     )
+    u_ph, ph_sentence = ph_uncertainty_used(sample)
     uncertainties = dict(
         u_temperature=sample.u_temperature,
         u_salinity=sample.u_salinity,
-        u_ph=sample.u_ph if sample.ph is not None else 0.0,
+        u_ph=u_ph,
         u_alkalinity=sample.u_alkalinity if alkalinity is not None else 0.0,
         u_dic=sample.u_dic if sample.dic is not None else 0.0,
         u_pco2=sample.u_pco2 if sample.pco2 is not None else 0.0,
@@ -205,5 +270,6 @@ def solve_sample(sample: ChemistrySolveIn) -> ChemistrySolveOut:
         at_tank_temperature=tank,
         alkalinity_umol_kg=float(state.alkalinity),
         warnings=warnings,
+        uncertainty_basis=_uncertainty_basis(sample, ph_sentence, alkalinity is not None),
         chemistry_version=CHEMISTRY_VERSION,
     )

@@ -134,3 +134,40 @@ def test_nan_is_refused(client, viewer_key):
     )
     assert response.status_code == 422
     assert "temperature" in response.text
+
+
+def test_nbs_ph_without_u_ph_gets_the_glass_electrode_default_and_says_so(client, viewer_key):
+    """The review's sample: without u_ph the answer used to carry the constants' part only
+    (omega 0.867 +- 0.049) although NBS pH error dominates. 0.05 for a glass electrode is
+    common practice (and the station default)."""
+    sample = {"temperature": 12, "salinity": 31, "ph": 7.78, "ph_scale": "nbs",
+              "alkalinity": 2150}
+    answer = client.post(URL, json=sample, headers=auth(viewer_key))
+    assert answer.status_code == 200, answer.text
+    body = answer.json()
+    inputs = dict(temperature=12.0, salinity=31.0, ph=7.78, alkalinity=2150.0, ph_scale="nbs")
+    with_ph = float(standard_uncertainty(**inputs, u_ph=0.05)["omega_aragonite"])
+    without_ph = float(standard_uncertainty(**inputs, u_ph=0.0)["omega_aragonite"])
+    assert with_ph > 1.5 * without_ph  # the pH part is what the old default left out
+    assert body["in_situ"]["uncertainty"]["omega_aragonite"] == pytest.approx(with_ph, rel=1e-9)
+    assert "pH uncertainty 0.05 assumed" in body["uncertainty_basis"][0]
+    assert "NBS" in body["uncertainty_basis"][0]
+    given = client.post(URL, json=sample | {"u_ph": 0.01}, headers=auth(viewer_key)).json()
+    assert given["uncertainty_basis"][0] == "pH uncertainty 0.01 as given (u_ph)."
+    assert given["in_situ"]["uncertainty"]["omega_aragonite"] == pytest.approx(
+        float(standard_uncertainty(**inputs, u_ph=0.01)["omega_aragonite"]), rel=1e-9)
+
+
+def test_total_scale_ph_without_u_ph_says_no_ph_uncertainty_is_included(client, viewer_key):
+    sample = {"temperature": 12, "salinity": 31, "ph": 7.78, "ph_scale": "total",
+              "alkalinity": 2150}
+    body = client.post(URL, json=sample, headers=auth(viewer_key)).json()
+    assert body["uncertainty_basis"][0].startswith("No pH uncertainty included")
+    inputs = dict(temperature=12.0, salinity=31.0, ph=7.78, alkalinity=2150.0,
+                  ph_scale="total")
+    assert body["in_situ"]["uncertainty"]["omega_aragonite"] == pytest.approx(
+        float(standard_uncertainty(**inputs, u_ph=0.0)["omega_aragonite"]), rel=1e-9)
+    no_ph = client.post(URL, json={"temperature": 12, "salinity": 31, "alkalinity": 2150,
+                                   "dic": 2000, "u_dic": 2}, headers=auth(viewer_key)).json()
+    assert not any("pH uncertainty" in line for line in no_ph["uncertainty_basis"])
+    assert "u_dic 2" in " ".join(no_ph["uncertainty_basis"])
