@@ -555,12 +555,17 @@ def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetim
 
 
 def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
-    """One multi-row INSERT ... ON CONFLICT DO NOTHING RETURNING, bound by the driver.
+    """The driver's executemany of ``INSERT ... ON CONFLICT DO NOTHING``, then our new rows.
 
     The values go through each column type's own bind processor once per column, so
     stored times have exactly the text SQLAlchemy writes (the unique index compares
-    that text); SQLAlchemy's per-row parameter handling of an executemany cost more
-    than SQLite's insert itself.
+    that text); SQLAlchemy's per-row parameter handling, and RETURNING (which makes
+    SQLite step the statement once per row), cost more than the insert itself.
+
+    The rows this call stored are the ones with a rowid above the largest before it:
+    the transaction holds SQLite's write lock from its first write (the service begins
+    IMMEDIATE), so no other writer interleaves, and SQLite gives a new row the largest
+    rowid plus one.
     """
     table = Reading.__table__
     dialect = connection.dialect
@@ -572,14 +577,20 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
         columns.append([process(v) for v in values] if process is not None else values)
     written = columns[names.index("observed_at")]
     by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
-    one_row = f"({', '.join('?' for _ in names)})"
     statement = (
-        f"INSERT INTO {table.name} ({', '.join(names)}) VALUES "
-        f"{', '.join(one_row for _ in rows)} ON CONFLICT DO NOTHING RETURNING id, observed_at"
+        f"INSERT INTO {table.name} ({', '.join(names)}) "
+        f"VALUES ({', '.join('?' for _ in names)}) ON CONFLICT DO NOTHING"
     )
-    parameters = tuple(value for row in zip(*columns, strict=True) for value in row)
-    result = connection.exec_driver_sql(statement, parameters).all()
-    return {by_text[observed_at]: row_id for row_id, observed_at in result}
+    before = connection.exec_driver_sql(
+        f"SELECT coalesce(max(id), 0) FROM {table.name}"
+    ).scalar_one()
+    connection.exec_driver_sql(statement, list(zip(*columns, strict=True)))
+    if before >= 2**63 - 1 - len(rows):  # pragma: no cover - SQLite would pick random rowids
+        raise RuntimeError("the readings table has run out of rowids")
+    new = connection.exec_driver_sql(
+        f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,)
+    ).all()
+    return {by_text[observed_at]: row_id for row_id, observed_at in new}
 
 
 def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> list[Any]:
