@@ -352,7 +352,8 @@ async def save_sample(request: Request, site_id: str, station_id: str, session: 
     values = {name: str(form.get(name, "")).strip() for name in SAMPLE_FIELDS}
     if principal.role != "admin":
         return _sample_page(request, session, principal, site, station, values=values,
-                            saved=None, errors=["Only an admin key may record samples."],
+                            saved=None,
+                            errors=["Only an admin key may record samples; nothing was saved."],
                             status_code=403)
     data = {k: v for k, v in values.items() if v != ""}
     if "collected_at" in data:

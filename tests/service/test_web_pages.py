@@ -69,8 +69,8 @@ def test_acknowledge_form_needs_its_token(client, session, viewer_key, make_tank
     assert "test viewer" in alert.acknowledged_by
 
 
-def test_sample_form_saves_for_admins_and_names_bad_fields(client, admin_key, viewer_key,
-                                                           make_station):
+def test_sample_form_saves_for_admins_and_names_bad_fields(client, session, admin_key,
+                                                           viewer_key, make_station, make_tank):
     station = make_station()
     url = f"/sites/{station.site_id}/stations/{station.id}/samples/new"
     _sign_in(client, admin_key)
@@ -87,10 +87,23 @@ def test_sample_form_saves_for_admins_and_names_bad_fields(client, admin_key, vi
     assert wrong.status_code == 422 and "salinity" in wrong.text
     client.post("/sign-out", follow_redirects=False)
     _sign_in(client, viewer_key)
-    token = _token(client.get(url).text)
+    viewer_page = client.get(url)
+    # A viewer is told who may record samples instead of being offered a form to fill in.
+    assert 'name="salinity"' not in viewer_page.text
+    assert "Only someone signed in with an admin key may record bottle samples" in (
+        viewer_page.text)
+    # The acknowledge form of an open alert carries this session's token: a viewer with a
+    # valid token is still refused by role, not by the token check.
+    tank = make_tank(station=station)
+    rule = session.query(AlertRule).filter(AlertRule.tank_pk == tank.pk).first()
+    session.add(Alert(rule_id=rule.id, site_id=tank.site_id, state="active",
+                      since=tank.created_at, raised_at=tank.created_at, last_value=1.1))
+    session.commit()
+    token = _token(client.get(f"/sites/{station.site_id}").text)
     refused = client.post(url, data=fields | {"form_token": token,
                                               "collected_at": "2026-05-06T09:30"})
     assert refused.status_code == 403
+    assert "nothing was saved" in refused.text
 
 
 def test_chart_is_svg_for_signed_in_users_only(client, viewer_key, make_tank):
