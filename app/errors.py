@@ -1,19 +1,27 @@
 """The shape of every error answer, declared once for the OpenAPI schema.
 
-Every 4xx answer is ``{"detail": ...}``: a sentence naming the problem, or for a request
-that fails validation the list of problems with a ``message`` that puts them in sentences.
+Every 4xx answer is ``{"detail": "..."}``: sentences naming the problem. A request that fails
+validation (422) also lists its ``problems``, each with the field's location and its sentence;
+the sentences name the field, its allowed range and the value sent
+(``app/validation_sentences.py``).
 """
 
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import Annotated, Any
 
-from fastapi import Request
+from fastapi import Path, Request
 from fastapi.encoders import jsonable_encoder
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel, ConfigDict, Field
+
+from app.validation_sentences import join_sentences, sentences_for
+
+# A row id in a path: positive and within a signed 64-bit integer, the widest integer
+# column of SQLite and PostgreSQL (a larger number would fail in the driver, not here).
+RowId = Annotated[int, Path(ge=1, le=2**63 - 1, description="A positive integer id.")]
 
 
 class ValidationProblem(BaseModel):
@@ -22,16 +30,17 @@ class ValidationProblem(BaseModel):
     loc: list[str | int] = Field(description="Where the problem is: body, query or path, field.")
     msg: str
     type: str
+    sentence: str = Field(description="The problem as a sentence naming the field.")
 
 
 class ErrorOut(BaseModel):
-    """An error answer. ``detail`` is one sentence, or the list of validation problems."""
+    """An error answer: ``detail`` is always sentences; 422 adds the problems one by one."""
 
     model_config = ConfigDict(extra="allow")
 
-    detail: str | list[ValidationProblem]
-    message: str | None = Field(
-        default=None, description="The validation problems as sentences (422 only)."
+    detail: str
+    problems: list[ValidationProblem] | None = Field(
+        default=None, description="Each validation problem with its location (422 only)."
     )
 
 
@@ -60,31 +69,20 @@ def _json_safe(value: Any) -> Any:
     return value
 
 
-def _problem_sentence(problem: dict[str, Any]) -> str:
-    location = [str(part) for part in problem.get("loc", ())]
-    if location and location[0] in ("body", "query", "path", "header", "cookie"):
-        where, field = location[0], ".".join(location[1:])
-    else:
-        where, field = "", ".".join(location)
-    message = str(problem.get("msg", "is invalid")).removeprefix("Value error, ")
-    kind = problem.get("type", "")
-    if kind == "missing" and location == ["body"]:
-        return "the request body is empty; send a JSON object"
-    if kind == "missing":
-        return f"{field or where} is required" + (f" (in the {where})" if field and where else "")
-    if kind == "extra_forbidden":
-        return f"{field} is not a field here"
-    if kind == "json_invalid":
-        return f"the body is not valid JSON: {message}"
-    if not field:
-        return f"the {where or 'request'}: {message}"
-    return f"{field}: {message}"
-
-
-async def validation_error_handler(_request: Request, error: Exception) -> JSONResponse:
+async def validation_error_handler(request: Request, error: Exception) -> JSONResponse:
     # FastAPI's own handler echoes the offending input, and a refused NaN or Infinity
     # would make that answer itself unserialisable (a 500 instead of a 422).
     assert isinstance(error, RequestValidationError)
-    problems = _json_safe(jsonable_encoder(error.errors()))
-    message = "; ".join(_problem_sentence(p) for p in problems) + "."
-    return JSONResponse(status_code=422, content={"detail": problems, "message": message})
+    raw = list(error.errors())
+    route = request.scope.get("route")
+    problems = []
+    sentences: list[str] = []
+    for problem in raw:
+        sentence = sentences_for([problem], route)[0]
+        if sentence not in sentences:
+            sentences.append(sentence)
+        shown = {key: problem[key] for key in ("loc", "msg", "type") if key in problem}
+        problems.append(_json_safe(jsonable_encoder(shown | {"sentence": sentence})))
+    return JSONResponse(
+        status_code=422, content={"detail": join_sentences(sentences), "problems": problems}
+    )

@@ -24,6 +24,7 @@ from app.alerts.schemas import (
 from app.alerts.state_machine import AlertState
 from app.auth.dependencies import AdminDep, ReaderDep
 from app.db import SessionDep
+from app.errors import RowId
 from app.sites.models import Station, Tank
 
 router = APIRouter(tags=["alerts"])
@@ -175,7 +176,7 @@ def list_alert_rules(site_id: str, session: SessionDep, _: ReaderDep) -> list[Al
     summary="Change an alert rule's levels, timing or recipients",
 )
 def update_alert_rule(
-    site_id: str, rule_id: int, body: AlertRuleUpdate, session: SessionDep, _: AdminDep
+    site_id: str, rule_id: RowId, body: AlertRuleUpdate, session: SessionDep, _: AdminDep
 ) -> AlertRulePublic:
     try:
         rule = rules_module.get_rule(session=session, site_id=site_id, rule_id=rule_id)
@@ -194,7 +195,7 @@ def update_alert_rule(
     status_code=status.HTTP_204_NO_CONTENT,
     summary="Retire an alert rule (its alerts stay in the history)",
 )
-def delete_alert_rule(site_id: str, rule_id: int, session: SessionDep, _: AdminDep) -> Response:
+def delete_alert_rule(site_id: str, rule_id: RowId, session: SessionDep, _: AdminDep) -> Response:
     try:
         rule = rules_module.get_rule(session=session, site_id=site_id, rule_id=rule_id)
     except rules_module.NotFoundError as error:
@@ -235,7 +236,7 @@ def list_alerts(
     response_model=AlertPublic,
     summary="Acknowledge an active alert (records who and when; stops reminders)",
 )
-def acknowledge_alert(alert_id: int, session: SessionDep, principal: ReaderDep) -> AlertPublic:
+def acknowledge_alert(alert_id: RowId, session: SessionDep, principal: ReaderDep) -> AlertPublic:
     alert = session.get(Alert, alert_id)
     if alert is None:
         raise HTTPException(status_code=404, detail=f"No alert with id {alert_id}.")

@@ -58,12 +58,6 @@ _BODY_SCHEMA = {
     "/readings",
     response_model=IngestSummary,
     summary="Post sensor readings (device key)",
-    responses={
-        422: {
-            "model": IngestRefused,
-            "description": "The body's shape is wrong, or no posted reading could be stored.",
-        }
-    },
     openapi_extra={
         "requestBody": {"required": True, "content": {"application/json": {"schema": _BODY_SCHEMA}}}
     },
