@@ -172,8 +172,8 @@ def test_sign_in_tank_table_and_acknowledge(served_app, tmp_path: Path):
                 "td.omega").inner_text()
             assert row.locator("td.floor").inner_text() == f"{tank['omega_floor']:.2f}"
             assert row.locator("td.alert-state").inner_text().strip() == "active"
-            if tank["dose"] and not tank["dose"].get("refused"):
-                assert f"{tank['dose']['mg_per_l']:.1f} mg/L" in row.locator(
+            if tank["dose"] and not tank["dose"].get("total_refused"):
+                assert f"{tank['dose']['total_mg_per_l']:.1f} mg/L" in row.locator(
                     "td.dose").inner_text()
 
             alert_id = alerts[0]["id"]

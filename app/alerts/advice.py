@@ -4,11 +4,22 @@ From the latest good reading at the tank's source station (QC overall not "fail"
 water is carried to the tank's culture temperature in a closed system (alkalinity and DIC
 kept; heating raises pCO2 and lowers pH), then:
 
-* its omega aragonite, standard uncertainty and probability of being below the tank floor;
+* the untreated water: omega aragonite, standard uncertainty, probability below the floor;
 * the same after the tank's current treatment (if any);
-* the dose of a chosen chemical that reaches the tank's target omega at culture temperature,
-  in mg/L and in grams for the tank's volume, or the sentence saying why no dose is advised;
-* what aeration to equilibrium with the site's atmosphere would give.
+* ``in_tank``, the one prediction every view shows as the tank's water (advice, status, the
+  web table, mail, the daily summary and the tank alerts): the water the larvae get, i.e.
+  after the current treatment. When the treated water would be outside the limits dose
+  advice keeps to (omega aragonite above :data:`chemistry.dosing.MAX_RESULT_OMEGA_ARAGONITE`
+  or pH total above :data:`chemistry.dosing.MAX_RESULT_PH_TOTAL`), the treatment is taken
+  to be a mistake (e.g. 500 typed for 5.00): the advice says so and ``in_tank`` and the
+  tank alerts fall back to the untreated water, the safe side, so an absurd treatment can
+  never silence a low-omega alert;
+* the dose of a chosen chemical that reaches the tank's target omega at culture
+  temperature: the total from untreated water (which replaces the current treatment) and,
+  with the same chemical as the current treatment, the additional amount on top of it;
+* what aeration to equilibrium with the site's atmosphere would give;
+* the reading's time and age, and a warning when it is older than the station's no-data
+  window (the tank's silence is the no-data rule's job: see :func:`stale_after_minutes`).
 
 Every answer carries :data:`chemistry.DOSING_CAUTION`.
 """
@@ -16,18 +27,39 @@ Every answer carries :data:`chemistry.DOSING_CAUTION`.
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 from typing import Any
 
 import numpy as np
-from sqlalchemy import select
+from sqlalchemy import func, or_, select
 from sqlalchemy.orm import Session
 
 import chemistry
+from app.alerts.models import AlertRule
+from app.alerts.rules import DEFAULT_SILENCE_MINUTES
+from app.db import utcnow
 from app.readings.models import Reading
 from app.sites.models import Site, Station, Tank
+from chemistry.dosing import MAX_RESULT_OMEGA_ARAGONITE, MAX_RESULT_PH_TOTAL
 
 QC_FAIL = 4
 DEFAULT_CHEMICAL = "sodium_carbonate"
+
+
+def treatment_limit_problem(omega_aragonite: float, ph_total: float) -> str | None:
+    """The sentence saying why treated water is outside safe limits, or ``None``.
+
+    The limits are the ones :func:`chemistry.dose_for_target` refuses to advise beyond.
+    """
+    if omega_aragonite > MAX_RESULT_OMEGA_ARAGONITE or ph_total > MAX_RESULT_PH_TOTAL:
+        return (
+            f"The current treatment is outside safe limits: it would give omega aragonite "
+            f"{omega_aragonite:.2f} and pH total {ph_total:.2f}, above the omega "
+            f"{MAX_RESULT_OMEGA_ARAGONITE:g} / pH total {MAX_RESULT_PH_TOTAL:g} this tool "
+            "allows. Check the dose entered for the tank; the prediction and the tank alerts "
+            "use the untreated water until it is corrected."
+        )
+    return None
 
 
 @dataclasses.dataclass(frozen=True, slots=True)
@@ -38,6 +70,33 @@ class TankPrediction:
     omega_aragonite_uncertainty: np.ndarray
     treated_omega_aragonite: np.ndarray | None
     treated_omega_aragonite_uncertainty: np.ndarray | None
+    treated_ph_total: np.ndarray | None = None
+
+    @property
+    def treatment_within_limits(self) -> np.ndarray | None:
+        """Per reading, whether the treated water is inside the dose limits (None: no treatment)."""
+        if self.treated_omega_aragonite is None or self.treated_ph_total is None:
+            return None
+        return (np.asarray(self.treated_omega_aragonite) <= MAX_RESULT_OMEGA_ARAGONITE) & (
+            np.asarray(self.treated_ph_total) <= MAX_RESULT_PH_TOTAL
+        )
+
+    @property
+    def larvae_omega_aragonite(self) -> np.ndarray:
+        """What the larvae get: treated where the treatment is inside the limits, else untreated."""
+        within = self.treatment_within_limits
+        if within is None:
+            return self.omega_aragonite
+        return np.where(within, self.treated_omega_aragonite, self.omega_aragonite)
+
+    @property
+    def larvae_omega_aragonite_uncertainty(self) -> np.ndarray:
+        within = self.treatment_within_limits
+        if within is None:
+            return self.omega_aragonite_uncertainty
+        return np.where(
+            within, self.treated_omega_aragonite_uncertainty, self.omega_aragonite_uncertainty
+        )
 
 
 def alkalinity_uncertainty(station: Station, reading: Reading | None = None) -> float:
@@ -54,6 +113,13 @@ def alkalinity_uncertainty(station: Station, reading: Reading | None = None) -> 
     if source == "salinity_line" and mode == "salinity_line":
         return float(station.alkalinity.get("residual_sd") or 0.0)
     return 0.0
+
+
+def _current_treatment(tank: Tank) -> dict[str, Any] | None:
+    treatment = tank.treatment or {}
+    if treatment.get("chemical") and float(treatment.get("dose_mg_per_l") or 0.0) > 0:
+        return treatment
+    return None
 
 
 def predict_tank_water(
@@ -94,15 +160,18 @@ def predict_tank_water(
         at_temperature=culture,
     )["omega_aragonite"]
     omega = np.asarray(in_tank.omega_aragonite, dtype=float)
-    treated = treated_u = None
-    treatment = tank.treatment or {}
-    if treatment.get("chemical") and float(treatment.get("dose_mg_per_l") or 0.0) > 0:
+    treated = treated_u = treated_ph = None
+    treatment = _current_treatment(tank)
+    if treatment is not None:
         after = chemistry.add_chemical(
             in_tank, treatment["chemical"], float(treatment["dose_mg_per_l"])
         )
         treated = np.asarray(after.omega_aragonite, dtype=float)
         treated_u = np.asarray(uncertainty, dtype=float) * treated / omega
-    return TankPrediction(omega, np.asarray(uncertainty, dtype=float), treated, treated_u)
+        treated_ph = np.asarray(after.ph_total, dtype=float)
+    return TankPrediction(
+        omega, np.asarray(uncertainty, dtype=float), treated, treated_u, treated_ph
+    )
 
 
 def latest_good_reading(*, session: Session, station_pk: int) -> Reading | None:
@@ -120,6 +189,38 @@ def latest_good_reading(*, session: Session, station_pk: int) -> Reading | None:
         .order_by(Reading.observed_at.desc())
         .limit(1)
     ).first()
+
+
+def stale_after_minutes(*, session: Session, tank: Tank) -> float:
+    """Age (minutes) beyond which a tank's reading is stale: its station's no-data window.
+
+    The shortest enabled no-data rule on the tank or its source station; without one, the
+    default rule's 30 minutes. Silence itself is the no-data rule's alert; the advice only
+    warns, and a tank alert left pending on such a reading lapses at the sweep
+    (:func:`app.alerts.evaluation.sweep`).
+    """
+    return no_data_window_minutes(
+        session=session, station_pk=tank.source_station_pk, tank_pk=tank.pk
+    )
+
+
+def no_data_window_minutes(
+    *, session: Session, station_pk: int, tank_pk: int | None = None
+) -> float:
+    """The shortest enabled no-data rule level on a station (or a tank it feeds), else 30."""
+    fed = select(Tank.pk).where(Tank.source_station_pk == station_pk)
+    level = session.scalar(
+        select(func.min(AlertRule.level)).where(
+            AlertRule.metric == "no_data",
+            AlertRule.enabled.is_(True),
+            AlertRule.deleted_at.is_(None),
+            or_(
+                AlertRule.station_pk == station_pk,
+                AlertRule.tank_pk == tank_pk if tank_pk is not None else AlertRule.tank_pk.in_(fed),
+            ),
+        )
+    )
+    return float(level) if level is not None else DEFAULT_SILENCE_MINUTES
 
 
 def _water(state: Any, uncertainty: float | None, floor: float) -> dict[str, Any]:
@@ -143,6 +244,116 @@ def _water(state: Any, uncertainty: float | None, floor: float) -> dict[str, Any
     return result
 
 
+def _chemical_words(chemical: str) -> str:
+    return chemical.replace("_", " ")
+
+
+def dose_sentence(dose: dict[str, Any], volume_l: float) -> str:
+    """The one wording of a tank's dose advice, used by mail, the daily summary and the web.
+
+    Names the total (from untreated water, replacing the current treatment) and the
+    additional amount on top of the current treatment, so neither can be mistaken for the
+    other. The caution is carried separately (``dose["caution"]``) and shown beside it.
+    """
+    chemical = _chemical_words(dose["chemical"])
+    target = dose["target_omega_aragonite"]
+    current = dose.get("current_treatment")
+    if dose.get("total_refused"):
+        return f"No dose advised: {dose['total_refused']}"
+    total = (
+        f"{dose['total_mg_per_l']:.1f} mg/L {chemical} "
+        f"({dose['total_grams_for_tank']:.0f} g for {volume_l:g} L)"
+    )
+    if current is None:
+        if dose["total_mg_per_l"] == 0:
+            return f"No dose needed: the water already reaches omega {target:g}."
+        return f"Dose {total} to reach omega {target:g} (the tank has no current treatment)."
+    current_words = (
+        f"{float(current['dose_mg_per_l']):g} mg/L {_chemical_words(current['chemical'])}"
+    )
+    text = (
+        f"Total dose {total} to reach omega {target:g}, computed from untreated water: it "
+        f"replaces the current treatment ({current_words}), it is not added to it."
+    )
+    if dose.get("additional_mg_per_l") is not None:
+        if dose["additional_mg_per_l"] == 0:
+            text += " On top of the current treatment: nothing more is needed."
+        else:
+            text += (
+                f" On top of the current treatment: add {dose['additional_mg_per_l']:.1f} mg/L "
+                f"({dose['additional_grams_for_tank']:.0f} g for {volume_l:g} L) more."
+            )
+    elif dose.get("additional_refused"):
+        text += f" On top of the current treatment: {dose['additional_refused']}"
+    return text
+
+
+def _dose(
+    *,
+    in_situ: Any,
+    treated_state: Any | None,
+    treatment: dict[str, Any] | None,
+    treatment_problem: str | None,
+    chemical: str,
+    target: float,
+    culture: float,
+    volume_l: float,
+    floor: float,
+) -> dict[str, Any]:
+    dose: dict[str, Any] = {
+        "chemical": chemical,
+        "target_omega_aragonite": target,
+        "current_treatment": treatment,
+        "total_refused": None,
+        "total_mg_per_l": None,
+        "total_grams_for_tank": None,
+        "total_alkalinity_added_umol_kg": None,
+        "total_dic_added_umol_kg": None,
+        "total_result": None,
+        "additional_refused": None,
+        "additional_mg_per_l": None,
+        "additional_grams_for_tank": None,
+    }
+    try:
+        total = chemistry.dose_for_target(in_situ, target, chemical=chemical, temperature=culture)
+    except chemistry.DoseRefusedError as refusal:
+        dose["total_refused"] = str(refusal)
+    else:
+        dose.update(
+            total_mg_per_l=total.mg_per_l,
+            total_grams_for_tank=total.mg_per_l * volume_l / 1000.0,
+            total_alkalinity_added_umol_kg=total.alkalinity_added,
+            total_dic_added_umol_kg=total.dic_added,
+            total_result=_water(total.state, None, floor),
+        )
+    if treatment is None:
+        # Nothing in the water yet: the additional dose is the total.
+        for part in ("refused", "mg_per_l", "grams_for_tank"):
+            dose[f"additional_{part}"] = dose[f"total_{part}"]
+    elif treatment_problem is not None:
+        dose["additional_refused"] = (
+            "no dose on top of the current treatment is advised while that treatment is "
+            "outside safe limits; correct it first."
+        )
+    elif treatment["chemical"] != chemical:
+        dose["additional_refused"] = (
+            f"{_chemical_words(chemical)} cannot be added on top of the current "
+            f"{_chemical_words(treatment['chemical'])} treatment by this tool; use the total "
+            "dose only, in place of the current treatment."
+        )
+    else:
+        try:
+            extra = chemistry.dose_for_target(treated_state, target, chemical=chemical)
+        except chemistry.DoseRefusedError as refusal:
+            dose["additional_refused"] = str(refusal)
+        else:
+            dose["additional_mg_per_l"] = extra.mg_per_l
+            dose["additional_grams_for_tank"] = extra.mg_per_l * volume_l / 1000.0
+    dose["text"] = dose_sentence(dose, volume_l)
+    dose["caution"] = chemistry.DOSING_CAUTION
+    return dose
+
+
 def tank_advice(
     *,
     session: Session,
@@ -150,12 +361,15 @@ def tank_advice(
     tank: Tank,
     chemical: str = DEFAULT_CHEMICAL,
     reading: Reading | None = None,
+    now: dt.datetime | None = None,
 ) -> dict[str, Any] | None:
     """Advice for one tank from the latest good reading at its source station.
 
     Returns ``None`` when the station has no good reading yet. The result is plain JSON-able
-    data: the reading used, the water in the tank (untreated and after the current
-    treatment), the dose for the target, aeration, and the caution.
+    data: the reading used (with its age at ``now``, default the clock), the water in the
+    tank (``in_tank``: what the larvae get, after the current treatment unless that is
+    outside safe limits; ``untreated``; ``after_treatment``), the dose for the target
+    (total and additional, see :func:`dose_sentence`), aeration, warnings, and the caution.
     """
     station = tank.source_station
     if reading is None:
@@ -165,6 +379,7 @@ def tank_advice(
     floor = float(tank.omega_floor)
     target = float(tank.omega_target)
     culture = float(tank.culture_temperature_c)
+    volume = float(tank.volume_l)
     u_alk = alkalinity_uncertainty(station, reading)
     prediction = predict_tank_water(
         site=site,
@@ -184,47 +399,76 @@ def tank_advice(
         ph_scale="total",
         carbonic=site.carbonic_constants,
     )
-    in_tank = chemistry.at_temperature(in_situ, culture)
-    u_tank = float(prediction.omega_aragonite_uncertainty)
+    untreated_state = chemistry.at_temperature(in_situ, culture)
+    untreated = _water(
+        untreated_state, float(prediction.omega_aragonite_uncertainty), floor
+    )
 
-    treated = None
-    treatment = tank.treatment or None
-    if prediction.treated_omega_aragonite is not None and treatment:
-        after = chemistry.add_chemical(
-            in_tank, treatment["chemical"], float(treatment["dose_mg_per_l"])
+    warnings: list[str] = []
+    treated = treated_state = treatment_problem = None
+    treatment = _current_treatment(tank)
+    if treatment is not None:
+        treated_state = chemistry.add_chemical(
+            untreated_state, treatment["chemical"], float(treatment["dose_mg_per_l"])
         )
-        treated = _water(after, float(prediction.treated_omega_aragonite_uncertainty), floor)
-
-    dose: dict[str, Any]
-    try:
-        advice = chemistry.dose_for_target(in_situ, target, chemical=chemical, temperature=culture)
-    except chemistry.DoseRefusedError as refusal:
-        dose = {"chemical": chemical, "refused": str(refusal)}
+        treated = _water(
+            treated_state, float(prediction.treated_omega_aragonite_uncertainty), floor
+        )
+        treatment_problem = treatment_limit_problem(
+            treated["omega_aragonite"], treated["ph_total"]
+        )
+        if treatment_problem:
+            warnings.append(treatment_problem)
+    if treated is not None and treatment_problem is None:
+        in_tank, basis = treated, "after_current_treatment"
+    elif treated is not None:
+        in_tank, basis = untreated, "untreated_treatment_outside_limits"
     else:
-        dose = {
-            "chemical": chemical,
-            "refused": None,
-            "mg_per_l": advice.mg_per_l,
-            "grams_for_tank": advice.mg_per_l * float(tank.volume_l) / 1000.0,
-            "alkalinity_added_umol_kg": advice.alkalinity_added,
-            "dic_added_umol_kg": advice.dic_added,
-            "result": _water(advice.state, None, floor),
-        }
-    dose["target_omega_aragonite"] = target
-    dose["caution"] = chemistry.DOSING_CAUTION
+        in_tank, basis = untreated, "untreated_no_treatment"
 
-    aerated = chemistry.equilibrate_with_air(in_tank, xco2_ppm=float(site.atmospheric_xco2_ppm))
+    now = now or utcnow()
+    observed = reading.observed_at
+    if observed.tzinfo is None:
+        observed = observed.replace(tzinfo=dt.UTC)
+    age_minutes = (now - observed).total_seconds() / 60.0
+    stale_after = stale_after_minutes(session=session, tank=tank)
+    stale = age_minutes > stale_after
+    if stale:
+        warnings.append(
+            f"The reading is {age_minutes:.0f} minutes old, older than the station's "
+            f"{stale_after:g}-minute no-data window: this advice may not describe the water "
+            "now. Check the sensor at the source station."
+        )
+
+    dose = _dose(
+        in_situ=in_situ,
+        treated_state=treated_state,
+        treatment=treatment,
+        treatment_problem=treatment_problem,
+        chemical=chemical,
+        target=target,
+        culture=culture,
+        volume_l=volume,
+        floor=floor,
+    )
+    aerated = chemistry.equilibrate_with_air(
+        untreated_state, xco2_ppm=float(site.atmospheric_xco2_ppm)
+    )
 
     return {
         "site_id": site.id,
         "tank_id": tank.id,
         "station_id": station.id,
-        "volume_l": float(tank.volume_l),
+        "source": source_description(station),
+        "volume_l": volume,
         "culture_temperature_c": culture,
         "omega_floor": floor,
         "omega_target": target,
         "reading": {
             "observed_at": reading.observed_at,
+            "age_minutes": age_minutes,
+            "stale": stale,
+            "stale_after_minutes": stale_after,
             "temperature_c": reading.temperature_c,
             "salinity": reading.salinity,
             "ph_total": reading.ph_total,
@@ -234,14 +478,32 @@ def tank_advice(
             "omega_aragonite_uncertainty": reading.omega_aragonite_uncertainty,
             "qc_overall": reading.qc_overall,
         },
-        "in_tank": _water(in_tank, u_tank, floor),
+        "in_tank": in_tank,
+        "in_tank_basis": basis,
+        "untreated": untreated,
         "treatment": treatment,
+        "treatment_within_limits": None if treatment is None else treatment_problem is None,
         "after_treatment": treated,
         "dose": dose,
         "aeration": {
+            "applies_to": "the untreated water",
             "atmospheric_xco2_ppm": float(site.atmospheric_xco2_ppm),
             "result": _water(aerated, None, floor),
         },
+        "warnings": warnings,
         "chemistry_version": chemistry.CHEMISTRY_VERSION,
         "caution": chemistry.DOSING_CAUTION,
     }
+
+
+STATION_ROLE_WORDS = {
+    "intake": "intake",
+    "treated": "treated header",
+    "tank": "tank sensor",
+}
+
+
+def source_description(station: Station) -> str:
+    """How a tank's source is named everywhere: the station's name, id and role."""
+    role = STATION_ROLE_WORDS.get(station.role, station.role)
+    return f"{station.name} ({station.id}, {role})"

@@ -142,12 +142,10 @@ def _value_observations(
             alkalinity=[r.alkalinity_used_umol_kg for r in usable],
             u_alkalinity=[advice_module.alkalinity_uncertainty(station, r) for r in usable],
         )
-        # What the larvae get: the treated water when the tank has a treatment.
-        omega = prediction.omega_aragonite
-        uncertainty = prediction.omega_aragonite_uncertainty
-        if prediction.treated_omega_aragonite is not None:
-            omega = prediction.treated_omega_aragonite
-            uncertainty = prediction.treated_omega_aragonite_uncertainty
+        # What the larvae get: the treated water, unless the treatment is outside the dose
+        # limits (then the untreated water, so an absurd dose cannot silence the alert).
+        omega = prediction.larvae_omega_aragonite
+        uncertainty = prediction.larvae_omega_aragonite_uncertainty
         return _with_probability(
             thresholds, usable, np.atleast_1d(omega), np.atleast_1d(uncertainty)
         )
@@ -243,7 +241,12 @@ def _tank_advice_for_mail(ctx: RuleContext) -> list[tuple[Tank, dict[str, Any] |
     for tank in tanks:
         try:
             result.append(
-                (tank, advice_module.tank_advice(session=ctx.session, site=ctx.site, tank=tank))
+                (
+                    tank,
+                    advice_module.tank_advice(
+                        session=ctx.session, site=ctx.site, tank=tank, now=ctx.now
+                    ),
+                )
             )
         except chemistry.ChemistryInputError as error:
             logger.warning("tank advice for %s failed in an alert mail: %s", tank.id, error)
@@ -362,6 +365,49 @@ def evaluate_after_ingest(
             apply_observations(ctx, observed)
 
 
+# Value rules whose pending alerts lapse when their data go stale (see lapse_stale_pending).
+STALE_LAPSE_METRICS = tuple(sorted(INGEST_METRICS - set(SWEEP_METRICS)))
+
+
+def lapse_stale_pending(*, session: Session, now: dt.datetime) -> int:
+    """Close pending value alerts whose last observation is older than the no-data window.
+
+    A pending alert waits for readings that show the condition held for the rule's hold
+    time; without new readings it would wait forever on a stale value. Silence is the no-data
+    rule's alert, so the pending one lapses (``closed_reason`` "stale_data") and nothing is
+    mailed; the next reading starts a fresh excursion. Active alerts stay active.
+    """
+    rows = session.execute(
+        select(Alert, AlertRule)
+        .join(AlertRule, AlertRule.id == Alert.rule_id)
+        .where(
+            Alert.state == sm.AlertState.PENDING.value,
+            AlertRule.metric.in_(STALE_LAPSE_METRICS),
+        )
+        .order_by(Alert.id)
+        .with_for_update(skip_locked=True, of=AlertRule)
+        .execution_options(populate_existing=True)
+    ).all()
+    lapsed = 0
+    for alert, rule in rows:
+        tank = session.get(Tank, rule.tank_pk) if rule.tank_pk else None
+        station_pk = rule.station_pk if rule.station_pk is not None else tank.source_station_pk
+        window = advice_module.no_data_window_minutes(
+            session=session, station_pk=station_pk, tank_pk=rule.tank_pk
+        )
+        last = alert.last_value_at or alert.since
+        if last is not None and last.tzinfo is None:
+            last = last.replace(tzinfo=dt.UTC)
+        if last is None or now - last <= dt.timedelta(minutes=window):
+            continue
+        alert.state = sm.AlertState.LAPSED.value
+        alert.closed_at = now
+        alert.closed_reason = "stale_data"
+        lapsed += 1
+    session.flush()
+    return lapsed
+
+
 def sweep(*, session: Session, now: dt.datetime) -> int:
     """Evaluate the no-data rules at ``now`` and send due reminders; returns rules handled.
 
@@ -413,5 +459,6 @@ def sweep(*, session: Session, now: dt.datetime) -> int:
                 alert.last_notified_at = notification.at
                 _notify(ctx, alert, notification)
         handled += 1
+    lapse_stale_pending(session=session, now=now)
     session.flush()
     return handled

@@ -15,6 +15,7 @@ from zoneinfo import ZoneInfo
 from sqlalchemy.orm import Session
 
 import chemistry
+from app.alerts.advice import source_description
 from app.alerts.models import Alert, AlertRule, OutboxMessage
 from app.sites.models import Site, Station, Tank
 
@@ -73,34 +74,39 @@ def _advice_lines(advice: dict[str, Any] | None, tank: Tank) -> list[str]:
     if advice is None:
         return [f"Tank {tank.name} ({tank.id}): no good reading at its source station yet."]
     water = advice["in_tank"]
+    basis = {
+        "after_current_treatment": "after the current treatment",
+        "untreated_treatment_outside_limits": "untreated (the current treatment is outside "
+        "safe limits)",
+        "untreated_no_treatment": "no treatment",
+    }.get(advice["in_tank_basis"], advice["in_tank_basis"])
+    reading = advice["reading"]
     lines = [
-        f"Tank {tank.name} ({tank.id}) at {advice['culture_temperature_c']:g} °C: predicted "
-        f"omega aragonite {water['omega_aragonite']:.2f} ± "
-        f"{water['omega_aragonite_uncertainty']:.2f}, probability below the floor "
-        f"{advice['omega_floor']:g}: {water['probability_below_floor']:.0%}; "
-        f"pH total {water['ph_total']:.2f}, pCO2 {water['pco2_uatm']:.0f} uatm.",
+        f"Tank {tank.name} ({tank.id}), fed from {advice['source']}, at "
+        f"{advice['culture_temperature_c']:g} °C: predicted omega aragonite "
+        f"{water['omega_aragonite']:.2f} ± {water['omega_aragonite_uncertainty']:.2f} "
+        f"({basis}), probability below the floor {advice['omega_floor']:g}: "
+        f"{water['probability_below_floor']:.0%}; pH total {water['ph_total']:.2f}, "
+        f"pCO2 {water['pco2_uatm']:.0f} uatm.",
+        f"  From the reading of {reading['observed_at']:%Y-%m-%d %H:%M} UTC, "
+        f"{reading['age_minutes']:.0f} minutes old.",
     ]
-    if advice["after_treatment"] is not None:
-        treated = advice["after_treatment"]
+    if advice["treatment"] is not None:
+        untreated = advice["untreated"]
         lines.append(
-            f"  After the current treatment ({advice['treatment']['chemical']}, "
-            f"{advice['treatment']['dose_mg_per_l']:g} mg/L): omega aragonite "
-            f"{treated['omega_aragonite']:.2f} ± {treated['omega_aragonite_uncertainty']:.2f}."
+            f"  Untreated water (before the current treatment, "
+            f"{advice['treatment']['dose_mg_per_l']:g} mg/L "
+            f"{advice['treatment']['chemical'].replace('_', ' ')}): omega aragonite "
+            f"{untreated['omega_aragonite']:.2f} ± {untreated['omega_aragonite_uncertainty']:.2f}."
         )
-    dose = advice["dose"]
-    if dose.get("refused"):
-        lines.append(f"  Dose: none advised. {dose['refused']}")
-    else:
-        lines.append(
-            f"  Dose to reach omega {dose['target_omega_aragonite']:g}: "
-            f"{dose['mg_per_l']:.1f} mg/L of {dose['chemical']}, "
-            f"{dose['grams_for_tank']:.0f} g for {advice['volume_l']:g} L."
-        )
+    for warning in advice.get("warnings", []):
+        lines.append(f"  Warning: {warning}")
+    lines.append(f"  {advice['dose']['text']}")
     aerated = advice["aeration"]["result"]
     lines.append(
-        f"  Aeration to equilibrium with air ({advice['aeration']['atmospheric_xco2_ppm']:g} "
-        f"ppm): omega aragonite {aerated['omega_aragonite']:.2f}, pH total "
-        f"{aerated['ph_total']:.2f}."
+        f"  Aeration of the untreated water to equilibrium with air "
+        f"({advice['aeration']['atmospheric_xco2_ppm']:g} ppm): omega aragonite "
+        f"{aerated['omega_aragonite']:.2f}, pH total {aerated['ph_total']:.2f}."
     )
     return lines
 
@@ -123,7 +129,7 @@ def compose_alert_message(
     lines = [
         f"Site: {site.name} ({site.id})",
         f"{'Tank' if tank is not None else 'Station'}: {place.split(' ', 1)[1]}"
-        + (f", fed by station {station.name} ({station.id})" if tank is not None else ""),
+        + (f", fed from {source_description(station)}" if tank is not None else ""),
         f"Rule {rule.id}: {_condition(rule)}"
         + (f", held for {rule.hold_minutes:g} minutes" if rule.hold_minutes else ""),
         f"Condition since: {_local(alert.since, site)}",

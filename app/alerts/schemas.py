@@ -174,11 +174,28 @@ class TankAdvicePublic(BaseModel):
     culture_temperature_c: float
     omega_floor: float
     omega_target: float
-    reading: dict[str, Any]
-    in_tank: dict[str, Any]
+    source: str = Field(description="The source station's name, id and role.")
+    reading: dict[str, Any] = Field(
+        description="The reading used, with its age_minutes and stale (older than "
+        "stale_after_minutes, the station's no-data window)."
+    )
+    in_tank: dict[str, Any] = Field(
+        description="The water the larvae get: after the current treatment, or untreated when "
+        "the tank has none or it is outside safe limits (see in_tank_basis)."
+    )
+    in_tank_basis: Literal[
+        "after_current_treatment", "untreated_no_treatment", "untreated_treatment_outside_limits"
+    ]
+    untreated: dict[str, Any] = Field(description="The water before any treatment.")
     treatment: dict[str, Any] | None
+    treatment_within_limits: bool | None
     after_treatment: dict[str, Any] | None
-    dose: dict[str, Any]
+    dose: dict[str, Any] = Field(
+        description="total_*: the dose from untreated water, which replaces the current "
+        "treatment; additional_*: the dose on top of the current treatment (same chemical "
+        "only, else additional_refused says why); text: the wording shown everywhere."
+    )
     aeration: dict[str, Any]
+    warnings: list[str]
     chemistry_version: str
     caution: str

@@ -104,21 +104,29 @@ def compose_summary(
             "omega_aragonite": water["omega_aragonite"],
             "omega_aragonite_uncertainty": water["omega_aragonite_uncertainty"],
             "probability_below_floor": water["probability_below_floor"],
+            "basis": advice["in_tank_basis"],
+            "untreated_omega_aragonite": advice["untreated"]["omega_aragonite"],
         }
-        dose = advice["dose"]
-        dose_text = (
-            f"dose none advised ({dose['refused']})"
-            if dose.get("refused")
-            else f"dose {dose['mg_per_l']:.1f} mg/L {dose['chemical']} "
-            f"({dose['grams_for_tank']:.0f} g for the tank) "
-            f"to reach {dose['target_omega_aragonite']:g}"
+        treated_words = {
+            "after_current_treatment": "after the current treatment",
+            "untreated_treatment_outside_limits": "untreated: the current treatment is "
+            "outside safe limits",
+            "untreated_no_treatment": "no treatment",
+        }[advice["in_tank_basis"]]
+        untreated_text = (
+            f"; untreated water {advice['untreated']['omega_aragonite']:.2f}"
+            if advice["treatment"] is not None
+            else ""
         )
         lines.append(
-            f"Tank {tank.name} ({tank.id}) now: predicted omega aragonite "
-            f"{water['omega_aragonite']:.2f} ± {water['omega_aragonite_uncertainty']:.2f} at "
-            f"{advice['culture_temperature_c']:g} °C (floor {advice['omega_floor']:g}); "
-            f"{dose_text}."
+            f"Tank {tank.name} ({tank.id}), fed from {advice['source']}, now: predicted omega "
+            f"aragonite {water['omega_aragonite']:.2f} ± {water['omega_aragonite_uncertainty']:.2f}"
+            f" ({treated_words}) at {advice['culture_temperature_c']:g} °C "
+            f"(floor {advice['omega_floor']:g}){untreated_text}."
         )
+        for warning in advice["warnings"]:
+            lines.append(f"  Warning: {warning}")
+        lines.append(f"  {advice['dose']['text']}")
     raised = session.scalar(
         select(func.count(Alert.id)).where(
             Alert.site_id == site.id, Alert.raised_at >= start, Alert.raised_at < end

@@ -37,7 +37,11 @@ VOLUME_RANGE_L = (0.0, 1.0e7)  # exclusive lower bound
 # Seawater freezes near -2 degC (common practice); no bivalve culture is run above 45 degC.
 CULTURE_TEMPERATURE_RANGE_C = (-2.0, 45.0)
 OMEGA_RANGE = (0.0, 10.0)  # exclusive lower bound
-MAX_TREATMENT_DOSE_MG_PER_L = 500.0  # the dose calculator's search limit (chemistry.dosing)
+# Design maximum of this package for a tank's standing treatment: 100 mg/L of any of the three
+# chemicals adds at least 1190 umol/kg of alkalinity (sodium bicarbonate) and up to 2500
+# (sodium hydroxide), beyond the 1000 umol/kg one dose may add (chemistry.dosing); a value
+# above it is a typing or unit mistake (500 for 5.00, g for mg), not a treatment.
+MAX_TREATMENT_DOSE_MG_PER_L = 100.0
 
 
 def _check_slug(value: str) -> str:
@@ -221,7 +225,16 @@ class StationPublic(BaseModel):
 
 class Treatment(_Body):
     chemical: Literal["sodium_carbonate", "sodium_bicarbonate", "sodium_hydroxide"]
-    dose_mg_per_l: float = Field(ge=0.0, le=MAX_TREATMENT_DOSE_MG_PER_L)
+    dose_mg_per_l: float = Field(
+        ge=0.0,
+        le=MAX_TREATMENT_DOSE_MG_PER_L,
+        description=(
+            "The tank's current standing dose, mg of the solid per litre, from 0 to "
+            f"{MAX_TREATMENT_DOSE_MG_PER_L:g} (design maximum). Advice and alerts use the "
+            "untreated water when this dose would take omega aragonite above 5 or pH total "
+            "above 8.5."
+        )
+    )
 
 
 OMEGA_FLOOR_DESCRIPTION = (

@@ -18,7 +18,12 @@ from sqlalchemy import String, select, type_coerce
 from sqlalchemy.orm import Session
 
 import chemistry
-from app.alerts.advice import alkalinity_uncertainty, predict_tank_water, tank_advice
+from app.alerts.advice import (
+    alkalinity_uncertainty,
+    predict_tank_water,
+    source_description,
+    tank_advice,
+)
 from app.alerts.models import Alert, AlertRule
 from app.alerts.state_machine import OPEN_ALERT_STATES
 from app.readings.models import Reading
@@ -242,7 +247,8 @@ def tank_prediction_series(
         np.atleast_1d(prediction.omega_aragonite),
         None
         if prediction.treated_omega_aragonite is None
-        else np.atleast_1d(prediction.treated_omega_aragonite),
+        # Treated where the treatment is inside the dose limits, as the alerts judge it.
+        else np.atleast_1d(prediction.larvae_omega_aragonite),
     )
 
 
@@ -396,9 +402,12 @@ def tank_status(
     )
     advice = None
     if reading is not None:
-        advice = tank_advice(session=session, site=site, tank=tank, reading=reading)
+        advice = tank_advice(
+            session=session, site=site, tank=tank, reading=reading, now=window.as_of
+        )
     predicted = None
     after_treatment = None
+    untreated = None
     dose = None
     if advice is not None:
         water = advice["in_tank"]
@@ -409,6 +418,13 @@ def tank_status(
             "probability_below_floor": water["probability_below_floor"],
             "ph_total": water["ph_total"],
             "pco2_uatm": water["pco2_uatm"],
+            "basis": advice["in_tank_basis"],
+            "age_minutes": advice["reading"]["age_minutes"],
+            "stale": advice["reading"]["stale"],
+        }
+        untreated = {
+            key: advice["untreated"][key]
+            for key in ("omega_aragonite", "omega_aragonite_uncertainty", "probability_below_floor")
         }
         treated = advice.get("after_treatment")
         if treated:
@@ -430,6 +446,9 @@ def tank_status(
         "treatment": tank.treatment,
         "predicted": predicted,
         "after_treatment": after_treatment,
+        "untreated": untreated,
+        "source": source_description(station),
+        "warnings": [] if advice is None else advice["warnings"],
         "minutes_below_floor": minutes,
         "minutes_below_floor_untreated": minutes_untreated,
         "minutes_with_data": covered,
@@ -480,6 +499,14 @@ def fill_window_hints(
                     "tank_ids": [
                         t.id for t in tanks if float(t.culture_temperature_c) == temperature
                     ],
+                    "station": source_description(station),
+                    # Each tank's own source: a tank fed from a treated header does not get
+                    # this intake's water as it is.
+                    "tank_sources": {
+                        t.id: source_description(t.source_station)
+                        for t in tanks
+                        if float(t.culture_temperature_c) == temperature
+                    },
                     "lookback_days": LOOKBACK.days,
                     **hint.as_dict(),
                 }

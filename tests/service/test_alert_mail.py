@@ -209,7 +209,7 @@ def test_omega_drop_gives_one_mail_after_the_hold_and_one_after_recovery(
     # 12:10 UTC is 05:10 PDT: "since when" in site-local time.
     assert "Condition since: 2026-06-01 05:10 PDT" in text
     assert "± " in text  # value with its uncertainty
-    assert "mg/L of sodium_carbonate" in text  # the recommended dose
+    assert "mg/L sodium carbonate" in text  # the recommended dose
     assert "https://spatline.hatchery.example/" in text and "{{" not in text
     assert chemistry.DOSING_CAUTION in text
     assert 'href="https://spatline.hatchery.example/"' in html

@@ -86,7 +86,7 @@ def test_advice_predicts_the_tank_water_from_the_latest_good_reading(
     expected = chemistry.at_temperature(
         chemistry.solve(temperature=T_IN, salinity=S, ph=PH, alkalinity=TA), 24.0
     )
-    water = advice["in_tank"]
+    water = advice["untreated"]
     assert water["temperature_c"] == 24.0
     assert water["omega_aragonite"] == pytest.approx(float(expected.omega_aragonite), rel=1e-9)
     # Closed-system heating keeps alkalinity and DIC and raises pCO2 (common practice).
@@ -104,19 +104,22 @@ def test_advice_predicts_the_tank_water_from_the_latest_good_reading(
         2 * added / (float(chemistry.seawater_density(24.0, S)) / 1000.0), rel=1e-3
     )
     assert treated["omega_aragonite"] > water["omega_aragonite"]
+    # The tank's one prediction is the water the larvae get: after the current treatment.
+    assert advice["in_tank"] == treated
+    assert advice["in_tank_basis"] == "after_current_treatment"
     assert advice["caution"] == chemistry.DOSING_CAUTION
 
 
 def test_soda_ash_dose_matches_hand_stoichiometry(client, viewer_headers, advised_tank):
     _site, _station, tank = advised_tank
     dose = _advice(client, viewer_headers, tank)["dose"]
-    assert dose["chemical"] == "sodium_carbonate" and dose["refused"] is None
+    assert dose["chemical"] == "sodium_carbonate" and dose["total_refused"] is None
     density_kg_per_l = float(chemistry.seawater_density(24.0, S)) / 1000.0
-    moles_umol_per_kg = dose["mg_per_l"] / SODA_ASH_G_PER_MOL * 1000.0 / density_kg_per_l
-    assert dose["alkalinity_added_umol_kg"] == pytest.approx(2 * moles_umol_per_kg, rel=1e-3)
-    assert dose["dic_added_umol_kg"] == pytest.approx(moles_umol_per_kg, rel=1e-3)
+    moles_umol_per_kg = dose["total_mg_per_l"] / SODA_ASH_G_PER_MOL * 1000.0 / density_kg_per_l
+    assert dose["total_alkalinity_added_umol_kg"] == pytest.approx(2 * moles_umol_per_kg, rel=1e-3)
+    assert dose["total_dic_added_umol_kg"] == pytest.approx(moles_umol_per_kg, rel=1e-3)
     # mg/L times litres / 1000 = grams for the tank.
-    assert dose["grams_for_tank"] == pytest.approx(dose["mg_per_l"] * 1500.0 / 1000.0)
+    assert dose["total_grams_for_tank"] == pytest.approx(dose["total_mg_per_l"] * 1500.0 / 1000.0)
     # The dosed water, solved independently from the raised alkalinity and DIC, hits the target.
     base = chemistry.at_temperature(
         chemistry.solve(temperature=T_IN, salinity=S, ph=PH, alkalinity=TA), 24.0
@@ -124,22 +127,22 @@ def test_soda_ash_dose_matches_hand_stoichiometry(client, viewer_headers, advise
     dosed = chemistry.solve(
         temperature=24.0,
         salinity=S,
-        alkalinity=float(base.alkalinity) + dose["alkalinity_added_umol_kg"],
-        dic=float(base.dic) + dose["dic_added_umol_kg"],
+        alkalinity=float(base.alkalinity) + dose["total_alkalinity_added_umol_kg"],
+        dic=float(base.dic) + dose["total_dic_added_umol_kg"],
     )
     assert float(dosed.omega_aragonite) == pytest.approx(3.0, abs=0.01)
-    assert dose["result"]["omega_aragonite"] == pytest.approx(3.0, abs=0.01)
+    assert dose["total_result"]["omega_aragonite"] == pytest.approx(3.0, abs=0.01)
     assert dose["caution"] == chemistry.DOSING_CAUTION
 
 
 def test_caustic_soda_adds_alkalinity_without_carbon(client, viewer_headers, advised_tank):
     _site, _station, tank = advised_tank
     dose = _advice(client, viewer_headers, tank, chemical="sodium_hydroxide")["dose"]
-    assert dose["refused"] is None
+    assert dose["total_refused"] is None
     density_kg_per_l = float(chemistry.seawater_density(24.0, S)) / 1000.0
-    equivalents = dose["mg_per_l"] / CAUSTIC_SODA_G_PER_MOL * 1000.0 / density_kg_per_l
-    assert dose["alkalinity_added_umol_kg"] == pytest.approx(equivalents, rel=1e-3)
-    assert dose["dic_added_umol_kg"] == 0.0
+    equivalents = dose["total_mg_per_l"] / CAUSTIC_SODA_G_PER_MOL * 1000.0 / density_kg_per_l
+    assert dose["total_alkalinity_added_umol_kg"] == pytest.approx(equivalents, rel=1e-3)
+    assert dose["total_dic_added_umol_kg"] == 0.0
 
 
 def test_aeration_moves_the_tank_water_to_air_pco2(client, viewer_headers, advised_tank):
