@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import NoReturn
 
 from fastapi import APIRouter, HTTPException, Response, status
+from fastapi.exceptions import RequestValidationError
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -60,10 +61,9 @@ def _raise_for(error: service.SiteConfigError) -> NoReturn:
     if isinstance(error, service.AlreadyExistsError):
         raise HTTPException(status_code=status.HTTP_409_CONFLICT, detail=str(error))
     if isinstance(error, service.InvalidFieldError):
-        # Same shape as FastAPI's own validation errors, so clients handle one format.
-        raise HTTPException(
-            status_code=status.HTTP_422_UNPROCESSABLE_CONTENT,
-            detail=[{"loc": ["body", error.field], "msg": str(error), "type": "value_error"}],
+        # Answered by the one validation handler, so clients handle one format.
+        raise RequestValidationError(
+            [{"loc": ("body", error.field), "msg": str(error), "type": "value_error"}]
         )
     raise HTTPException(status_code=status.HTTP_400_BAD_REQUEST, detail=str(error))
 

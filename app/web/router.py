@@ -37,6 +37,7 @@ from app.sites.models import Site, Station, Tank
 from app.status.compute import DEFAULT_MAX_GAP
 from app.status.days import StatusDayError, check_status_day, site_today
 from app.status.service import QC_FAIL, omega_at_temperature, site_status
+from app.validation_sentences import find_field, problem_sentence
 from app.web.charts import Series, omega_week_svg
 
 TEMPLATES = Jinja2Templates(directory=Path(__file__).resolve().parent.parent / "templates")
@@ -368,7 +369,7 @@ async def save_sample(request: Request, site_id: str, station_id: str, session: 
         body = LabSampleCreate.model_validate(data)
     except ValidationError as error:
         messages = [
-            f"{'.'.join(str(p) for p in e['loc']) or 'sample'}: {e['msg']}"
+            problem_sentence(e, find_field(LabSampleCreate, list(e["loc"])))
             for e in error.errors()
         ]
         return _sample_page(request, session, principal, site, station, values=values,

@@ -15,10 +15,14 @@ SITE = {"id": "north-cove", "name": "North Cove hatchery", "timezone": "America/
 
 
 def _error_text(response) -> str:
-    detail = response.json()["detail"]
-    if isinstance(detail, str):
-        return detail
-    return " | ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}" for e in detail)
+    """The answer's sentences, and for a 422 each problem's location with its message."""
+    answer = response.json()
+    assert isinstance(answer["detail"], str), answer  # one error format everywhere
+    problems = answer.get("problems") or []
+    return " | ".join(
+        [answer["detail"]]
+        + [f"{'.'.join(map(str, e['loc']))}: {e['msg']} ({e['sentence']})" for e in problems]
+    )
 
 
 @pytest.fixture
