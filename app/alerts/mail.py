@@ -154,8 +154,9 @@ def compose_alert_message(
         lines += _advice_lines(advice, advised_tank)
     lines += [
         "",
-        f"Dashboard: {PUBLIC_URL_TOKEN}/",
-        f"Alerts: {PUBLIC_URL_TOKEN}/api/v1/sites/{site.id}/alerts?state=active",
+        # Web pages, not the API: a link from mail must open in a browser without a key.
+        f"Dashboard: {PUBLIC_URL_TOKEN}/sites/{site.id}",
+        f"Alerts: {PUBLIC_URL_TOKEN}/sites/{site.id}#alerts",
         "",
         chemistry.DOSING_CAUTION,
     ]
@@ -167,7 +168,7 @@ def text_to_html(title: str, text: str) -> str:
     paragraphs = []
     for line in text.splitlines():
         escaped = html.escape(line)
-        if escaped.startswith(("Dashboard: ", "Alerts: ")):
+        if escaped.startswith(("Dashboard: ", "Alerts: ", "Day page: ")):
             label, url = escaped.split(": ", 1)
             escaped = f'{label}: <a href="{url}">{url}</a>'
         paragraphs.append(f"<p>{escaped}</p>" if escaped else "")

@@ -136,7 +136,8 @@ def compose_summary(
     lines += [
         "",
         f"Alerts raised that day: {int(raised or 0)}",
-        f"Dashboard: {PUBLIC_URL_TOKEN}/",
+        f"Dashboard: {PUBLIC_URL_TOKEN}/sites/{site.id}",
+        f"Day page: {PUBLIC_URL_TOKEN}/sites/{site.id}/days/{day.isoformat()}",
         "",
         chemistry.DOSING_CAUTION,
     ]

@@ -212,7 +212,9 @@ def test_omega_drop_gives_one_mail_after_the_hold_and_one_after_recovery(
     assert "mg/L sodium carbonate" in text  # the recommended dose
     assert "https://spatline.hatchery.example/" in text and "{{" not in text
     assert chemistry.DOSING_CAUTION in text
-    assert 'href="https://spatline.hatchery.example/"' in html
+    # Links open the web page (no API key needed in a browser), not the API.
+    assert f'href="https://spatline.hatchery.example/sites/{site.id}"' in html
+    assert "/api/" not in text
 
     # Recovery past the band: one clear mail; good water afterwards sends nothing.
     _ingest(session, station, [PH_BAND, PH_GOOD, PH_GOOD], start=T0 + dt.timedelta(minutes=45))
