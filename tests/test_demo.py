@@ -347,6 +347,9 @@ def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
         elapsed_steps = (datetime.now(UTC) - started) // timedelta(minutes=5) + 1
         added = _count(engine, Reading) - 2 * READINGS_PER_WEEK
         assert 0 <= added <= 2 * elapsed_steps
+        # Counts agree with their noun: "1 reading stored", "0 readings stored".
+        assert not re.search(r"\b1 readings\b|\b(?!1\b)\d+ reading\b", first + second)
+        assert re.search(rf"\b{READINGS_PER_WEEK} readings stored", first)
         with engine.connect() as connection:
             old_admin = connection.execute(
                 select(ApiKey.revoked_at).where(ApiKey.key_hash == hash_key(admin_key))
@@ -354,3 +357,9 @@ def test_spatline_demo_loads_the_hatchery_once_into_a_scratch_sqlite_database(
         assert old_admin is not None
     finally:
         engine.dispose()
+
+
+def test_demo_counts_agree_with_their_noun():
+    from app.cli.demo import _count
+
+    assert [_count(n, "reading") for n in (0, 1, 2)] == ["0 readings", "1 reading", "2 readings"]

@@ -14,7 +14,7 @@ import argparse
 import json
 import math
 import sys
-from typing import Any
+from typing import Any, NoReturn
 
 import numpy as np
 
@@ -111,6 +111,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.set_defaults(handler=run)
+    parser.error = _one_sentence_error  # type: ignore[method-assign]
+
+
+def _one_sentence_error(message: str) -> NoReturn:
+    """A bad option is one sentence on stderr and exit 2; the usage text buries it."""
+    message = message.removeprefix("argument ")
+    print(f"spatline carbonate: {message}; see spatline carbonate --help.", file=sys.stderr)
+    sys.exit(2)
 
 
 def _state_dict(state: Any) -> dict[str, Any]:

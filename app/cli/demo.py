@@ -146,9 +146,9 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
             session, station=station, source=source, readings=series.readings(), now=now
         )
         lines.append(
-            f"  {site_id}/{station_id}: {accepted} readings stored"
+            f"  {site_id}/{station_id}: {_count(accepted, 'reading')} stored"
             + (f", {duplicates} already there" if duplicates else "")
-            + (f", {rejected} rejected" if rejected else "")
+            + (f", {_count(rejected, 'reading')} rejected" if rejected else "")
             + "."
         )
 
@@ -232,7 +232,8 @@ def _sweep(session: Session, *, now: dt.datetime) -> str:
     sweep(session=session, now=now)
     open_states = [s.value for s in state_machine.OPEN_ALERT_STATES]
     open_count = len(session.scalars(select(Alert.id).where(Alert.state.in_(open_states))).all())
-    return f"Alert sweep done: {open_count} alerts open now (see the web page or /alerts)."
+    return (f"Alert sweep done: {_count(open_count, 'alert')} open now "
+            "(see the web page or /alerts).")
 
 
 def _demo_device_id(session: Session, station: Station) -> str | None:
@@ -317,3 +318,8 @@ def _fresh_keys(session: Session) -> list[str]:
     if revoked:
         lines.insert(0, f"Revoked the {revoked} demo keys of the previous run.")
     return lines
+
+
+def _count(n: int, noun: str) -> str:
+    """"1 reading", "2 readings"."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"

@@ -115,8 +115,12 @@ def _time_parser(options: ImportOptions) -> Callable[[str], str]:
                 if options.time_format
                 else dt.datetime.fromisoformat(text)
             )
-        except ValueError:
+        except ValueError as error:
             expected = options.time_format or "ISO 8601, e.g. 2026-06-01T05:00:00-07:00"
+            reason = str(error)
+            if "out of range" in reason or "must be in" in reason:
+                # It has the right shape, but names a day or hour the calendar lacks.
+                raise ValueError(f"time {text!r} is not a valid date or time ({reason})") from None
             raise ValueError(f"time {text!r} does not match {expected}") from None
         if moment.tzinfo is None:
             if zone is None:

@@ -4,6 +4,7 @@ devices endpoint). The plaintext of a new key is printed once, on stdout, and ne
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import sys
 
 from sqlalchemy.exc import OperationalError, ProgrammingError
@@ -65,16 +66,22 @@ def _create(args: argparse.Namespace) -> int:
 
 def _list(args: argparse.Namespace) -> int:
     def action(session: Session) -> int:
-        rows = keys.list_keys(session=session)
-        print(f"{'ID':>4}  {'PREFIX':8}  {'ROLE':6}  {'STATE':7}  {'LAST USED':25}  LABEL")
-        for api_key in rows:
-            state = "revoked" if api_key.revoked_at else "active"
-            last_used = api_key.last_used_at.isoformat() if api_key.last_used_at else "never"
-            label = api_key.label + (f" [device {api_key.device_id}]" if api_key.device_id else "")
-            print(
-                f"{api_key.id:>4}  {api_key.prefix:8}  {api_key.role:6}  {state:7}  "
-                f"{last_used:25}  {label}"
+        table = [("ID", "PREFIX", "ROLE", "STATE", "LAST USED (UTC)", "LABEL")]
+        for api_key in keys.list_keys(session=session):
+            last_used = (
+                _utc(api_key.last_used_at).strftime("%Y-%m-%d %H:%M:%S")
+                if api_key.last_used_at
+                else "never"
             )
+            table.append((
+                str(api_key.id),
+                api_key.prefix,
+                api_key.role,
+                "revoked" if api_key.revoked_at else "active",
+                last_used,
+                api_key.label + (f" [device {api_key.device_id}]" if api_key.device_id else ""),
+            ))
+        print(_aligned(table))
         return 0
 
     return _with_session(action)
@@ -91,3 +98,20 @@ def _revoke(args: argparse.Namespace) -> int:
         return 0
 
     return _with_session(action)
+
+
+def _utc(moment: dt.datetime) -> dt.datetime:
+    # Stored times are UTC; a driver may hand them back without the offset.
+    return moment.replace(tzinfo=dt.UTC) if moment.tzinfo is None else moment.astimezone(dt.UTC)
+
+
+def _aligned(table: list[tuple[str, ...]]) -> str:
+    """Columns padded to their widest cell (the id right-aligned, the last left ragged)."""
+    widths = [max(len(row[i]) for row in table) for i in range(len(table[0]) - 1)]
+    lines = []
+    for row in table:
+        cells = [row[0].rjust(widths[0])] + [
+            cell.ljust(width) for cell, width in zip(row[1:-1], widths[1:], strict=True)
+        ]
+        lines.append("  ".join([*cells, row[-1]]))
+    return "\n".join(lines)

@@ -3,10 +3,11 @@ database: the key is printed once, stored only as a hash, listed by prefix, revo
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 
 import pytest
-from sqlalchemy import select
+from sqlalchemy import select, update
 
 from app.auth.models import ApiKey
 from app.cli import main
@@ -86,3 +87,25 @@ def test_invalid_settings_stop_the_cli_with_the_reason(cli_settings, monkeypatch
     with pytest.raises(SystemExit) as exit_info:
         main(["migrate"])
     assert "SPATLINE_SECRET_KEY" in str(exit_info.value.code)
+
+
+def test_key_list_columns_line_up(cli_settings, capsys):
+    assert main(["migrate"]) == 0
+    for label in ("a", "a much longer label"):
+        assert main(["keys", "create", "--role", "viewer", "--label", label]) == 0
+    # One key has been used (a long timestamp), the other not ("never").
+    engine = make_engine(cli_settings)
+    with engine.begin() as connection:
+        connection.execute(
+            update(ApiKey).where(ApiKey.label == "a").values(
+                last_used_at=dt.datetime(2026, 5, 4, 9, 30, 15, 123456, tzinfo=dt.UTC))
+        )
+    engine.dispose()
+    capsys.readouterr()
+    assert main(["keys", "list"]) == 0
+    header, *rows = capsys.readouterr().out.splitlines()
+    assert len(rows) == 2
+    column = header.index("LABEL")
+    assert {row[column:] for row in rows} == {"a", "a much longer label"}
+    used = header.index("LAST USED")
+    assert {row[used:].split("  ")[0] for row in rows} == {"2026-05-04 09:30:15", "never"}

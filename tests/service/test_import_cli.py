@@ -162,6 +162,26 @@ class TestImportFunction:
         assert all(r.salinity is None and r.qc_salinity == 9 for r in rows)
         assert all(r.observed_at.hour == 6 for r in rows)
 
+    def test_an_impossible_date_is_called_invalid_not_a_format_mismatch(
+        self, tmp_path, session, station
+    ):
+        text = (
+            "observed_at,temperature_c,salinity,ph\n"
+            "31/11/2025 08:25,11.8,31.2,7.71\n"  # November has 30 days
+            "2025-11-30 08:25,11.8,31.2,7.71\n"  # not the --time-format at all
+        )
+        report = import_csv(
+            session=session,
+            station=station,
+            path=write(tmp_path, text),
+            options=options(time_format="%d/%m/%Y %H:%M"),
+            progress=False,
+        )
+        messages = dict(report.errors)
+        assert messages[2].startswith("time '31/11/2025 08:25' is not a valid date or time")
+        assert "does not match" not in messages[2]
+        assert "time '2025-11-30 08:25' does not match %d/%m/%Y %H:%M" in messages[3]
+
     def test_naive_times_without_a_zone_are_rejected_per_row(self, tmp_path, session, station):
         path = write(tmp_path, LOGGER_FILE)
         report = import_csv(
