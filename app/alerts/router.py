@@ -23,7 +23,7 @@ from app.alerts.schemas import (
 )
 from app.alerts.state_machine import AlertState
 from app.auth.dependencies import AdminDep, ReaderDep
-from app.db import SessionDep
+from app.db import SessionDep, utcnow
 from app.errors import RowId
 from app.sites.models import Station, Tank
 
@@ -251,6 +251,28 @@ def acknowledge_alert(alert_id: RowId, session: SessionDep, principal: ReaderDep
     return _alert_public(session, alert)
 
 
+@router.post(
+    "/notifications/{notification_id}/resend",
+    response_model=NotificationPublic,
+    summary="Queue a failed notification again (admin); the sender retries it as new",
+)
+def resend_notification(
+    notification_id: RowId, request: Request, session: SessionDep, _: AdminDep
+) -> NotificationPublic:
+    row = session.get(OutboxMessage, notification_id)
+    if row is None:
+        raise HTTPException(status_code=404, detail=f"No notification with id {notification_id}.")
+    try:
+        rules_module.requeue_notification(session=session, row=row, now=utcnow())
+    except rules_module.RuleInputError as error:
+        session.rollback()
+        raise HTTPException(status_code=status.HTTP_409_CONFLICT, detail=str(error)) from None
+    session.commit()
+    item = NotificationPublic.model_validate(row)
+    item.body_text = fill_public_url(row.body_text, request.app.state.settings.public_url)
+    return item
+
+
 @router.get(
     "/sites/{site_id}/notifications",
     response_model=list[NotificationPublic],
@@ -262,11 +284,17 @@ def list_notifications(
     session: SessionDep,
     _: ReaderDep,
     limit: Annotated[int, Query(ge=1, le=1000)] = 200,
+    status: Annotated[
+        Literal["pending", "sent", "failed", "unaddressed"] | None,
+        Query(description="Only notifications in this state, e.g. failed."),
+    ] = None,
 ) -> list[NotificationPublic]:
     _site(session, site_id)
+    query = select(OutboxMessage).where(OutboxMessage.site_id == site_id)
+    if status is not None:
+        query = query.where(OutboxMessage.status == status)
     rows = session.scalars(
-        select(OutboxMessage)
-        .where(OutboxMessage.site_id == site_id)
+        query
         .order_by(OutboxMessage.created_at.desc(), OutboxMessage.id.desc())
         .limit(limit)
     )

@@ -281,3 +281,22 @@ def acknowledge_alert(
     alert.acknowledged_by = who
     session.flush()
     return alert
+
+
+def requeue_notification(*, session: Session, row: Any, now: dt.datetime) -> None:
+    """Queue a failed mail again: pending, due now, with a fresh count of attempts.
+
+    Raises RuleInputError when the mail is not "failed" (sent or waiting mail is left alone,
+    so a resend can never send a mail twice).
+    """
+    if row.status != "failed":
+        raise RuleInputError(
+            f"Notification {row.id} is {row.status!r}; only a 'failed' notification can be "
+            "queued again."
+        )
+    row.status = "pending"
+    row.attempts = 0
+    row.next_attempt_at = now
+    row.lease_owner = None
+    row.lease_expires_at = None
+    session.flush()

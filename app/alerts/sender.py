@@ -41,12 +41,26 @@ SMTP_TIMEOUT_SECONDS = 20
 # RFC 5322, so a long subject or Message-ID reaches the reader on one line.
 MAIL_POLICY = email_policy.SMTP.clone(max_line_length=998)
 BATCH_SIZE = 20
+# Design defaults: a server that refuses a mail (5xx, or every recipient refused) may be
+# misconfigured for a while (a full mailbox, a relay rule being fixed), so a refused mail is
+# tried again from 5 minutes on, doubling up to 6 hours, and only marked "failed" after
+# MAX_REFUSED_ATTEMPTS attempts, which span about a day (5+10+20+40+80+160+320+360+360 min).
+# A failed mail can be queued again (POST /api/v1/notifications/{id}/resend).
+REFUSED_FIRST_RETRY_SECONDS = 300
+REFUSED_MAX_RETRY_SECONDS = 6 * 3600
+MAX_REFUSED_ATTEMPTS = 10
 
 
 def retry_delay(attempts: int) -> dt.timedelta:
     """Wait before the next attempt after ``attempts`` failed ones (1, 2, ...)."""
     seconds = FIRST_RETRY_SECONDS * 2 ** max(attempts - 1, 0)
     return dt.timedelta(seconds=min(seconds, MAX_RETRY_SECONDS))
+
+
+def refused_retry_delay(attempts: int) -> dt.timedelta:
+    """Wait before the next attempt after ``attempts`` attempts the server refused."""
+    seconds = REFUSED_FIRST_RETRY_SECONDS * 2 ** max(attempts - 1, 0)
+    return dt.timedelta(seconds=min(seconds, REFUSED_MAX_RETRY_SECONDS))
 
 
 def build_email(row: OutboxMessage, settings: Settings, *, date: dt.datetime) -> EmailMessage:
@@ -132,6 +146,10 @@ def send_due(
 ) -> dict[str, int]:
     """Send every due outbox row once; returns counts of sent, retried and failed rows.
 
+    A refused mail (5xx) is retried on :func:`refused_retry_delay`'s schedule and marked
+    "failed" only after :data:`MAX_REFUSED_ATTEMPTS` attempts; anything else (server down,
+    timeouts, 4xx) is retried on :func:`retry_delay`'s without a bound.
+
     Without ``settings.smtp_host`` nothing is sent: rows wait in the outbox.
     """
     counts = {"sent": 0, "retry": 0, "failed": 0}
@@ -149,18 +167,16 @@ def send_due(
                 if client is None:
                     client = _connect(settings)
                 refused = client.send_message(build_email(row, settings, date=now))
-            except smtplib.SMTPRecipientsRefused as error:
-                _record(factory, row, owner, status="failed", last_error=_describe(error))
-                counts["failed"] += 1
-                continue
             except (smtplib.SMTPException, OSError) as error:
-                permanent = _is_permanent(error)
                 values: dict[str, object] = {"last_error": _describe(error)}
-                if permanent:
+                if not _is_refusal(error):
+                    values["next_attempt_at"] = now + retry_delay(row.attempts)
+                    counts["retry"] += 1
+                elif row.attempts >= MAX_REFUSED_ATTEMPTS:
                     values["status"] = "failed"
                     counts["failed"] += 1
                 else:
-                    values["next_attempt_at"] = now + retry_delay(row.attempts)
+                    values["next_attempt_at"] = now + refused_retry_delay(row.attempts)
                     counts["retry"] += 1
                 _record(factory, row, owner, **values)
                 logger.warning("mail %s not sent (attempt %d): %s", row.id, row.attempts, error)
@@ -176,10 +192,13 @@ def send_due(
     return counts
 
 
-def _is_permanent(error: BaseException) -> bool:
+def _is_refusal(error: BaseException) -> bool:
+    """A 5xx answer or all recipients refused: retried on the slow, bounded schedule."""
+    if isinstance(error, smtplib.SMTPRecipientsRefused):
+        return True
     code = getattr(error, "smtp_code", None)
     if isinstance(error, smtplib.SMTPAuthenticationError):
-        return False  # a configuration problem an admin can fix; keep the mail
+        return False  # a configuration problem an admin can fix; keep retrying quickly
     return (
         isinstance(code, int)
         and 500 <= code < 600

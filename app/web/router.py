@@ -18,12 +18,12 @@ from fastapi import APIRouter, Form, HTTPException, Request, status
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 from pydantic import ValidationError
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 import chemistry
 from app.alerts import rules as alert_rules
-from app.alerts.models import Alert
+from app.alerts.models import Alert, OutboxMessage
 from app.auth.dependencies import Principal
 from app.auth.keys import find_active_key
 from app.auth.models import ApiKey
@@ -201,6 +201,11 @@ def _status_page(request: Request, session: Session, principal: Principal, site:
         next_day=day_shown + dt.timedelta(days=1),
         today=now.astimezone(ZoneInfo(site.timezone)).date(),
         chart_version=int(now.timestamp() // 300),
+        failed_mail=session.scalar(
+            select(func.count(OutboxMessage.id)).where(
+                OutboxMessage.site_id == site.id, OutboxMessage.status == "failed"
+            )
+        ),
     )
 
 
