@@ -23,7 +23,18 @@ from types import SimpleNamespace
 from typing import Any
 
 import numpy as np
-from sqlalchemy import Connection, String, and_, select, text, type_coerce, update
+from sqlalchemy import (
+    Connection,
+    Float,
+    String,
+    and_,
+    cast,
+    func,
+    select,
+    text,
+    type_coerce,
+    update,
+)
 from sqlalchemy.orm import Session
 
 from app.readings.models import Reading
@@ -390,8 +401,14 @@ def _context_columns(
     parsing each stored time in Python) cost more than the QC itself.
     """
     sqlite = session.get_bind().dialect.name == "sqlite"
-    # SQLite keeps naive UTC text; numpy parses a column of it in C.
-    observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
+    # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
+    # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
+    # ``_epoch_seconds`` rounds the new readings' times).
+    observed = (
+        type_coerce(Reading.observed_at, String)
+        if sqlite
+        else cast(func.extract("epoch", Reading.observed_at), Float)
+    )
     query = (
         select(
             Reading.id,
@@ -431,7 +448,7 @@ def _context_columns(
         micros = np.array(columns["observed_at"], dtype="datetime64[us]").astype(np.int64)
         seconds = micros / 1e6
     else:
-        seconds = np.array([_epoch_seconds(t) for t in columns["observed_at"]], dtype=float)
+        seconds = np.array(columns["observed_at"], dtype=float)
     out: dict[str, np.ndarray] = {
         "id": np.array(columns["id"], dtype=np.int64),
         "seconds": seconds,
