@@ -2,11 +2,10 @@
 
 from __future__ import annotations
 
-import datetime as dt
-
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
 
 from app.sites.schemas import Name, Slug
+from app.timefmt import UtcDatetime
 
 MAX_LARVAE = 10**12  # a count above this is a typing slip (design default)
 
@@ -38,12 +37,12 @@ class BatchPublic(BaseModel):
     site_id: str
     species: str
     tank_id: str
-    started_at: dt.datetime
-    ended_at: dt.datetime | None
+    started_at: UtcDatetime
+    ended_at: UtcDatetime | None
     count_start: int | None
     count_end: int | None
     notes: str | None
-    created_at: dt.datetime
+    created_at: UtcDatetime
 
 
 class ExposureWindow(BaseModel):
@@ -60,8 +59,8 @@ class BatchExposure(BaseModel):
     batch_id: str
     tank_id: str
     species: str
-    started_at: dt.datetime
-    ended_at: dt.datetime = Field(description="The batch's end, or now while it runs.")
+    started_at: UtcDatetime
+    ended_at: UtcDatetime = Field(description="The batch's end, or now while it runs.")
     running: bool
     omega_floor: float
     culture_temperature_c: float

@@ -173,18 +173,51 @@ def aggregated_readings(
     return buckets
 
 
-def _csv_value(value: Any) -> Any:
+# Decimals written to CSV per variable: finer than any sensor or the engine resolves, coarse
+# enough that binary float noise (2158.7200000000003) never shows. Matched by column stem,
+# so the bucket columns (ph_mean, ph_min, ...) follow their variable.
+CSV_DECIMALS: dict[str, int] = {
+    "temperature_c": 3,
+    "salinity": 3,
+    "ph": 4,
+    "ph_total": 4,
+    "alkalinity_input_umol_kg": 1,
+    "alkalinity_used_umol_kg": 1,
+    "dic_umol_kg": 1,
+    "pco2_uatm": 1,
+    "carbonate_umol_kg": 2,
+    "omega_aragonite": 3,
+    "omega_calcite": 3,
+    "omega_aragonite_uncertainty": 3,
+}
+# Any other float column: ten significant digits are past any measurement here.
+_CSV_SIGNIFICANT_DIGITS = 10
+
+
+def _variable(column: str) -> str:
+    for stat in STATISTICS:
+        if column.endswith(f"_{stat}"):
+            return column.removesuffix(f"_{stat}")
+    return column
+
+
+def _csv_value(value: Any, column: str = "") -> Any:
     if value is None:
         return ""
     if isinstance(value, dt.datetime):
         return value.astimezone(dt.UTC).isoformat().replace("+00:00", "Z")
     if isinstance(value, float):
-        return repr(value)
+        decimals = CSV_DECIMALS.get(_variable(column))
+        if decimals is None:
+            return f"{value:.{_CSV_SIGNIFICANT_DIGITS}g}"
+        # The shortest text of the rounded float: 2158.7, 7.9, 5.0 (no padding zeros).
+        return repr(round(value, decimals) + 0.0)  # + 0.0 turns -0.0 into 0.0
     return value
 
 
 def csv_lines(columns: Sequence[str], rows: Iterable[dict[str, Any]]) -> Iterator[str]:
-    """CSV text with a header row, one line at a time (times in UTC, ISO 8601 with Z)."""
+    """CSV text with a header row, one line at a time (times in UTC, ISO 8601 with Z;
+    numbers to the decimals of ``CSV_DECIMALS``)."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\r\n")
 
@@ -197,5 +230,5 @@ def csv_lines(columns: Sequence[str], rows: Iterable[dict[str, Any]]) -> Iterato
     writer.writerow(columns)
     yield flush()
     for row in rows:
-        writer.writerow([_csv_value(row.get(name)) for name in columns])
+        writer.writerow([_csv_value(row.get(name), name) for name in columns])
         yield flush()

@@ -6,7 +6,6 @@ import datetime as dt
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Depends, HTTPException, Query, status
-from fastapi.encoders import jsonable_encoder
 from fastapi.responses import JSONResponse, Response, StreamingResponse
 from sqlalchemy.orm import Session
 
@@ -27,6 +26,7 @@ from app.readings.schemas import (
 )
 from app.sites import service as sites_service
 from app.sites.models import Station
+from app.timefmt import json_body
 
 router = APIRouter(tags=["readings"])
 
@@ -193,7 +193,7 @@ def get_readings(
         "every": every,
         key: rows,
     }
-    return JSONResponse(jsonable_encoder(body))
+    return JSONResponse(json_body(body))
 
 
 @router.post(

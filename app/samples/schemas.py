@@ -7,6 +7,8 @@ from typing import Any, Literal
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
 
+from app.timefmt import UtcDatetime
+
 # Validation ranges: wide enough for any hatchery water, narrow enough to catch a unit slip.
 SALINITY_RANGE = (0.0, 50.0)  # practical salinity; the alkalinity fit's validity range
 TEMPERATURE_RANGE_C = (-2.0, 45.0)  # seawater freezes near -2 degC (common practice)
@@ -66,7 +68,7 @@ class LabSampleCreate(_Body):
 class LabSamplePublic(BaseModel):
     id: int
     station_id: str
-    collected_at: dt.datetime
+    collected_at: UtcDatetime
     salinity: float
     temperature_c: float
     alkalinity_umol_kg: float | None
@@ -75,7 +77,7 @@ class LabSamplePublic(BaseModel):
     ph_scale: str | None
     method: str | None
     notes: str | None
-    created_at: dt.datetime
+    created_at: UtcDatetime
 
 
 class AlkalinityLine(BaseModel):
@@ -97,7 +99,7 @@ class AlkalinityLineApplied(BaseModel):
 
 class PhOffset(BaseModel):
     sample_id: int
-    collected_at: dt.datetime
+    collected_at: UtcDatetime
     parameters: list[str] = Field(description="The two carbonate parameters used.")
     sensor_temperature_c: float | None
     sample_ph_total: float | None = Field(

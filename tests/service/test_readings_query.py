@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 from sqlalchemy import select
 
+from app.readings import queries
 from app.readings.models import Reading
 
 pytestmark = pytest.mark.db
@@ -129,11 +130,31 @@ def test_csv_parses_and_matches_the_json(client, station_with_data, viewer_key):
             item["observed_at"]
         )
         omega = line["omega_aragonite"]
-        assert (float(omega) if omega else None) == item["omega_aragonite"]
+        if item["omega_aragonite"] is None:
+            assert omega == ""
+        else:  # CSV keeps three decimals of omega (queries.CSV_DECIMALS)
+            assert float(omega) == round(item["omega_aragonite"], 3)
+            assert len(omega.partition(".")[2]) <= 3
         assert int(line["qc_overall"]) == item["qc_overall"]
         assert line["reading_id"] == ""  # null is an empty cell
     # The failed reading (pH 5.0, outside the sensor span) has no derived values.
     assert table[4]["ph"] == "5.0" and table[4]["omega_aragonite"] == ""
+
+
+@pytest.mark.parametrize(
+    ("value", "column", "text"),
+    [
+        (2158.7200000000003, "alkalinity_used_umol_kg", "2158.7"),
+        (7.812345678, "ph_total", "7.8123"),
+        (7.9, "ph", "7.9"),
+        (0.86712345, "omega_aragonite_mean", "0.867"),
+        (-0.0000001, "temperature_c", "0.0"),
+        (1.0000000000000002, "some_other_number", "1"),
+        (12, "qc_overall", 12),
+    ],
+)
+def test_csv_numbers_are_rounded_per_column(value, column, text):
+    assert queries._csv_value(value, column) == text
 
 
 def test_aggregated_csv(client, station_with_data, viewer_key):
