@@ -212,6 +212,13 @@ def _machine_state(rule: AlertRule, alert: Alert | None) -> sm.RuleState:
     )
 
 
+def _judged(rule: AlertRule, value: float | None) -> float | None:
+    """The value the rule compares: a sensor offset is kept signed but judged by its size."""
+    if value is None or rule.metric != "sensor_drift":
+        return value
+    return abs(value)
+
+
 def _is_worse(direction: str, candidate: float, current: float | None) -> bool:
     if current is None:
         return True
@@ -318,7 +325,7 @@ def apply_observations(ctx: RuleContext, observed: Sequence[Observed]) -> None:
             alert.last_probability = item.probability
             alert.last_value_at = item.observation.at
             if alert.state != sm.AlertState.CLEARED.value and _is_worse(
-                rule.direction, item.value, alert.worst_value
+                rule.direction, _judged(rule, item.value), _judged(rule, alert.worst_value)
             ):
                 alert.worst_value = item.value
             ctx.session.flush()

@@ -30,7 +30,7 @@ METRIC_WORDS = {
     "salinity": ("salinity", ""),
     "no_data": ("time without a reading", " min"),
     "qc_failed": ("QC flag", ""),
-    "sensor_drift": ("pH sensor offset from the latest bottle sample (size)", ""),
+    "sensor_drift": ("size of the pH sensor's offset from the latest bottle sample", ""),
 }
 GENERIC_METRIC_WORDS = ("value", "")
 KIND_WORDS = {"raised": "ALERT", "reminder": "STILL ACTIVE", "cleared": "CLEARED"}
@@ -58,8 +58,24 @@ def _value(metric: str, value: float | None, uncertainty: float | None = None) -
     return text + unit
 
 
+def _drift_words(offset: float | None) -> str:
+    """A signed pH offset (bottle sample minus sensor) in words."""
+    if offset is None:
+        return "-"
+    way = "high" if offset < 0 else "low"
+    return (
+        f"sensor reads {way} by {abs(offset):.3f} pH "
+        f"(bottle sample minus sensor: {offset:+.3f}, total scale)"
+    )
+
+
 def _condition(rule: AlertRule) -> str:
     words, unit = METRIC_WORDS.get(rule.metric, (rule.metric.replace("_", " "), ""))
+    if rule.metric == "sensor_drift":
+        return (
+            f"{words} above {rule.level:g} pH (either way); clears when it is "
+            f"{rule.clear_level:g} or less"
+        )
     if rule.metric == "no_data":
         return f"no reading for more than {rule.level:g} minutes"
     if rule.metric == "qc_failed":
@@ -138,11 +154,19 @@ def compose_alert_message(
         lines.append(f"Cleared at: {_local(at, site)}")
     elif alert.raised_at is not None:
         lines.append(f"Raised at: {_local(alert.raised_at, site)}")
-    lines += [
-        f"Current value: {_value(rule.metric, alert.last_value, alert.last_value_uncertainty)}"
-        f" at {_local(alert.last_value_at, site)}",
-        f"Worst value in this excursion: {_value(rule.metric, alert.worst_value)}",
-    ]
+    if rule.metric == "sensor_drift":
+        lines += [
+            f"Latest bottle sample ({_local(alert.last_value_at, site)}): "
+            f"{_drift_words(alert.last_value)}",
+            f"Largest offset in this excursion: {_drift_words(alert.worst_value)}",
+        ]
+    else:
+        lines += [
+            f"Current value: "
+            f"{_value(rule.metric, alert.last_value, alert.last_value_uncertainty)}"
+            f" at {_local(alert.last_value_at, site)}",
+            f"Worst value in this excursion: {_value(rule.metric, alert.worst_value)}",
+        ]
     if alert.last_probability is not None:
         lines.append(f"Probability of being past the level: {alert.last_probability:.0%}")
     if alert.acknowledged_at is not None:

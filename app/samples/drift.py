@@ -2,9 +2,12 @@
 
 The alert goes through the alerts module's rule state machine and outbox
 (:func:`app.alerts.evaluation.apply_observations`), so it is raised once, cleared once and
-mailed like any other alert. Its rule is made on first use, per station; it watches the
-absolute offset |sample pH - sensor pH| (total scale) with no hold time: a bottle sample is
-a deliberate check, not a noisy series.
+mailed like any other alert. Its rule is made on first use, per station; it judges the size
+of the offset |sample pH - sensor pH| (total scale, the sensor's median within 30 minutes of
+collection) with no hold time, a bottle sample being a deliberate check, not a noisy series.
+The alert keeps the signed offset (sample minus sensor; negative: the sensor reads high) so
+that its mail says which way the sensor is off. It clears at or below
+``DEFAULT_DRIFT_CLEAR_LEVEL`` (0.03), under the 0.05 alert level.
 
 The offset is judged when a sample is stored, in the same transaction (as readings are
 judged on ingest), so reading the pH check never writes. The level is the rule's own
@@ -25,6 +28,7 @@ from app.alerts.rules import open_alert, thresholds_of
 from app.samples.models import LabSample
 from app.samples.schemas import LabSampleCreate
 from app.samples.service import (
+    DEFAULT_DRIFT_CLEAR_LEVEL,
     DEFAULT_DRIFT_LEVEL,
     create_sample,
     list_samples,
@@ -76,7 +80,7 @@ def drift_rule(
             metric=SENSOR_DRIFT_METRIC,
             direction="above",
             level=level,
-            clear_level=level,
+            clear_level=min(DEFAULT_DRIFT_CLEAR_LEVEL, level),
             hold_minutes=0.0,
             recipients=_station_recipients(session, station),
             repeat_minutes=0.0,
@@ -106,9 +110,9 @@ def judge_drift(
     """
     rule = drift_rule(session=session, station=station, level=level, now=now)
     thresholds = thresholds_of(rule)
-    size = abs(offset)
     observed = Observed(
-        sm.Observation(at=collected_at, zone=sm.classify(thresholds, size)), value=size
+        sm.Observation(at=collected_at, zone=sm.classify(thresholds, abs(offset))),
+        value=offset,
     )
     apply_observations(RuleContext(session, site, rule, None, station, now), [observed])
     return open_alert(session=session, rule_id=rule.id)

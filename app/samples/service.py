@@ -16,7 +16,6 @@ from app.readings.models import Reading
 from app.samples.models import LabSample
 from app.samples.schemas import LabSampleCreate
 from app.sites.models import Site, Station
-from app.status.compute import DEFAULT_MAX_GAP
 from chemistry.fitting import AlkalinitySalinityFit
 
 QC_FAIL = 4
@@ -28,6 +27,12 @@ MIN_SAMPLES_FOR_LINE = 5
 #: Offset between bottle and sensor pH (total scale) above which the sensor is said to
 #: drift. A glass electrode's standard uncertainty is about 0.05 (common practice).
 DEFAULT_DRIFT_LEVEL = 0.05
+#: Offset size at or below which a drift alert clears: under the alert level, so that an
+#: offset hovering near 0.05 does not raise and clear at each sample (design default).
+DEFAULT_DRIFT_CLEAR_LEVEL = 0.03
+#: Sensor readings within this time of a sample's collection are compared with it (their
+#: median); bottle collection times are noted to a few minutes (design default).
+DRIFT_SENSOR_WINDOW = dt.timedelta(minutes=30)
 
 SECONDS_PER_30_DAYS = 30 * 86400.0
 
@@ -119,39 +124,33 @@ def alkalinity_line(*, session: Session, station: Station) -> AlkalinitySalinity
 class SensorAt:
     ph_total: float
     temperature_c: float
+    readings: int = 1
 
 
 def sensor_at(
-    *, session: Session, station: Station, at: dt.datetime, max_gap: dt.timedelta
+    *, session: Session, station: Station, at: dt.datetime, window: dt.timedelta
 ) -> SensorAt | None:
-    """Sensor pH (total) and temperature interpolated linearly at ``at``.
+    """Median sensor pH (total) and temperature of the good readings within ``window`` of ``at``.
 
-    Uses the nearest good reading on each side, each within ``max_gap``; a reading at
-    exactly ``at`` is used as it is. ``None`` when the sensor has no reading close enough.
+    The median over the readings around collection, not one reading, so that one noisy
+    reading (a glass electrode wanders by a few hundredths from one reading to the next)
+    does not decide whether the sensor drifts. ``None`` when no good reading is that close.
     """
-    base = select(Reading).where(
-        Reading.station_pk == station.pk,
-        Reading.qc_overall != QC_FAIL,
-        Reading.ph_total.is_not(None),
-        Reading.temperature_c.is_not(None),
-    )
-    before = session.scalars(
-        base.where(Reading.observed_at <= at, Reading.observed_at >= at - max_gap)
-        .order_by(Reading.observed_at.desc()).limit(1)
-    ).first()
-    if before is not None and before.observed_at == at:
-        return SensorAt(before.ph_total, before.temperature_c)
-    after = session.scalars(
-        base.where(Reading.observed_at > at, Reading.observed_at <= at + max_gap)
-        .order_by(Reading.observed_at).limit(1)
-    ).first()
-    if before is None or after is None:
+    rows = session.execute(
+        select(Reading.ph_total, Reading.temperature_c).where(
+            Reading.station_pk == station.pk,
+            Reading.qc_overall != QC_FAIL,
+            Reading.ph_total.is_not(None),
+            Reading.temperature_c.is_not(None),
+            Reading.observed_at >= at - window,
+            Reading.observed_at <= at + window,
+        )
+    ).all()
+    if not rows:
         return None
-    span = (after.observed_at - before.observed_at).total_seconds()
-    weight = (at - before.observed_at).total_seconds() / span
+    values = np.array(rows, dtype=float)
     return SensorAt(
-        before.ph_total + weight * (after.ph_total - before.ph_total),
-        before.temperature_c + weight * (after.temperature_c - before.temperature_c),
+        float(np.median(values[:, 0])), float(np.median(values[:, 1])), readings=len(rows)
     )
 
 
@@ -177,9 +176,12 @@ _PARAMETER_NAMES = {"ph": "ph", "alkalinity": "alkalinity_umol_kg", "dic": "dic_
 
 def sample_ph_offsets(
     *, session: Session, site: Site, station: Station, samples: Sequence[LabSample],
-    max_gap: dt.timedelta = DEFAULT_MAX_GAP,
+    window: dt.timedelta = DRIFT_SENSOR_WINDOW,
 ) -> list[dict[str, object]]:
     """Per sample with two carbonate parameters: sample pH minus sensor pH (total scale).
+
+    The sensor's value is the median of its good readings within ``window`` of collection.
+    A negative offset means the sensor reads high.
 
     The sample is solved at the temperature its pH was measured at and carried, in a
     closed bottle, to the sensor's temperature at collection, so both pH values describe
@@ -201,11 +203,11 @@ def sample_ph_offsets(
             "note": None,
         }
         sensor = sensor_at(session=session, station=station, at=sample.collected_at,
-                           max_gap=max_gap)
+                           window=window)
         if sensor is None:
             entry["note"] = (
                 "no good sensor reading within "
-                f"{int(max_gap.total_seconds() // 60)} minutes on both sides of collection"
+                f"{int(window.total_seconds() // 60)} minutes of collection"
             )
             offsets.append(entry)
             continue
