@@ -14,6 +14,7 @@ import signal
 import socket
 import subprocess
 import sys
+import tempfile
 import time
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
@@ -164,17 +165,17 @@ def serving(
         "--workers",
         str(workers),
     ]
-    process = subprocess.Popen(
-        command, cwd=REPO, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE
+    # The server's log goes to a file: an undrained pipe would fill and block the server.
+    log = tempfile.NamedTemporaryFile(  # noqa: SIM115 - closed when the server stops
+        prefix="spatline-bench-", suffix=".log", delete=False
     )
+    process = subprocess.Popen(command, cwd=REPO, env=env, stdout=subprocess.DEVNULL, stderr=log)
     base = f"http://127.0.0.1:{port}"
     try:
         deadline = time.monotonic() + 60
         while True:
             if process.poll() is not None:
-                raise RuntimeError(
-                    f"the server exited: {process.stderr.read().decode()[-2000:]}"  # type: ignore[union-attr]
-                )
+                raise RuntimeError(f"the server exited: {Path(log.name).read_text()[-2000:]}")
             try:
                 if httpx.get(f"{base}/healthz", timeout=1.0).status_code < 500:
                     break
@@ -191,3 +192,9 @@ def serving(
         except subprocess.TimeoutExpired:
             process.kill()
             process.wait()
+        log.close()
+        errors = [line for line in Path(log.name).read_text().splitlines() if "Traceback" in line]
+        if errors:
+            print(f"the server logged {len(errors)} tracebacks; its log: {log.name}")
+        else:
+            Path(log.name).unlink()
