@@ -5,6 +5,9 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed-stamp
+# Where `make demo` and `make serve` listen: `make demo PORT=8001` when 8000 is taken.
+HOST ?= 127.0.0.1
+PORT ?= 8000
 
 .PHONY: venv test test-sqlite test-postgres lint demo serve bench clean
 
@@ -30,12 +33,12 @@ test: lint test-sqlite
 	@if [ -n "$$SPATLINE_TEST_DATABASE_URL" ]; then $(MAKE) --no-print-directory test-postgres; fi
 
 demo: $(STAMP)
-	$(BIN)/spatline demo
-	$(BIN)/spatline serve
+	$(BIN)/spatline demo --port $(PORT)
+	$(BIN)/spatline serve --host $(HOST) --port $(PORT)
 
 serve: $(STAMP)
 	$(BIN)/spatline migrate
-	$(BIN)/spatline serve
+	$(BIN)/spatline serve --host $(HOST) --port $(PORT)
 
 bench: $(STAMP)
 	$(BIN)/python -m bench

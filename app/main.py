@@ -15,6 +15,7 @@ from fastapi.responses import JSONResponse
 from sqlalchemy import Engine, text
 
 from app.db import make_engine, make_sessionmaker, read_only_engine
+from app.docs import install as install_docs_page
 from app.errors import ERROR_RESPONSES, validation_error_handler
 from app.limits import BodyLimitMiddleware, StrictJsonMiddleware
 from app.logredact import install_key_redaction
@@ -93,7 +94,8 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
         version=_version(),
         description=DESCRIPTION,
         lifespan=lifespan,
-        docs_url="/docs",
+        docs_url=None,  # app.docs serves /docs with local assets (no CDN)
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.engine = engine
@@ -110,6 +112,7 @@ def create_app(settings: Settings | None = None, *, engine: Engine | None = None
         module = importlib.import_module(module_name)
         app.include_router(module.router, prefix=API_PREFIX, responses=ERROR_RESPONSES)
     install_web_pages(app, settings)
+    install_docs_page(app)
     return app
 
 

@@ -36,7 +36,7 @@ DEFAULT_SEED = 20260601
 # Readings are handed to the ingest in batches of the size a logger might post.
 BATCH_SIZE = 5000
 DEVICE_LABEL = "demo logger"
-LOCAL_URL = "http://127.0.0.1:8000"
+DEFAULT_PORT = 8000
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -58,6 +58,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=DEFAULT_SEED,
         help="seed of the simulated noise (default %(default)s)",
     )
+    parser.add_argument(
+        "--port",
+        type=int,
+        default=DEFAULT_PORT,
+        help="the port you will serve on, for the addresses printed (default %(default)s)",
+    )
     parser.set_defaults(handler=_demo)
 
 
@@ -70,7 +76,24 @@ def _demo(args: argparse.Namespace) -> int:
     summary = load_demo(settings=settings, seed=args.seed)
     for line in summary:
         print(line)
+    for line in serve_hint(port=args.port, public_url=settings.public_url):
+        print(line)
     return 0
+
+
+def serve_hint(*, port: int, public_url: str) -> list[str]:
+    """Where the demo will answer, and a word on mail links when they point elsewhere."""
+    local = f"http://127.0.0.1:{port}"
+    lines = [
+        f"Serve with `spatline serve --port {port}` (`make demo PORT={port}` does it): "
+        f"{local}, API docs at {local}/docs."
+    ]
+    if public_url.rstrip("/") != local:
+        lines.append(
+            f"Links in alert mail use SPATLINE_PUBLIC_URL ({public_url}); set it to {local} "
+            "(or the address readers' browsers reach) so they open this server."
+        )
+    return lines
 
 
 def load_demo(
@@ -162,8 +185,6 @@ def _load(session: Session, *, week: DemoWeek, now: dt.datetime) -> list[str]:
     lines.extend(
         [
             "Keys are shown only this once; store them now.",
-            f"Serve with `spatline serve` (or `make demo` does it): {LOCAL_URL}, "
-            f"API docs at {LOCAL_URL}/docs.",
             "The readings and advice support, and do not replace, the operator's judgement, "
             "local regulations and licensed practice.",
         ]
