@@ -132,6 +132,7 @@ def predict_tank_water(
     ph_total: Any,
     alkalinity: Any,
     u_alkalinity: Any = 0.0,
+    with_uncertainty: bool = True,
 ) -> TankPrediction:
     """Omega aragonite of source water carried to the tank's culture temperature.
 
@@ -141,6 +142,9 @@ def predict_tank_water(
     :func:`chemistry.standard_uncertainty`). After a treatment the relative uncertainty of
     the untreated prediction is kept: the dose is a known addition, and the budget is
     dominated by pH and the solubility product, which the dose does not change.
+    ``with_uncertainty=False`` leaves the uncertainties NaN for callers that need the
+    values only (a day's series for minutes below the floor): the budget costs several
+    solves more.
     """
     culture = float(tank.culture_temperature_c)
     inputs = dict(
@@ -153,13 +157,16 @@ def predict_tank_water(
     )
     in_situ = chemistry.solve(**inputs)
     in_tank = chemistry.at_temperature(in_situ, culture)
-    uncertainty = chemistry.standard_uncertainty(
-        **inputs,
-        u_ph=float(station.ph_uncertainty),
-        u_alkalinity=np.asarray(u_alkalinity, dtype=float),
-        at_temperature=culture,
-    )["omega_aragonite"]
     omega = np.asarray(in_tank.omega_aragonite, dtype=float)
+    if with_uncertainty:
+        uncertainty = chemistry.standard_uncertainty(
+            **inputs,
+            u_ph=float(station.ph_uncertainty),
+            u_alkalinity=np.asarray(u_alkalinity, dtype=float),
+            at_temperature=culture,
+        )["omega_aragonite"]
+    else:
+        uncertainty = np.full(omega.shape, np.nan)
     treated = treated_u = treated_ph = None
     treatment = _current_treatment(tank)
     if treatment is not None:

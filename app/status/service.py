@@ -214,7 +214,7 @@ def _good(readings: Sequence[Reading]) -> list[Reading]:
 
 @dataclass(frozen=True)
 class TankSeries:
-    times: list[datetime]
+    times: list[datetime] | np.ndarray  # aware datetimes, or naive UTC datetime64
     omega: np.ndarray
     treated_omega: np.ndarray | None
 
@@ -241,9 +241,34 @@ def tank_prediction_series(
         ph_total=[r.ph_total for r in good],
         alkalinity=[r.alkalinity_used_umol_kg for r in good],
         u_alkalinity=[alkalinity_uncertainty(station, r) for r in good],
+        with_uncertainty=False,  # the series carries values only
     )
+    return _series(good_times=[r.observed_at for r in good], prediction=prediction)
+
+
+def _tank_series_from_columns(
+    *, site: Site, tank: Tank, station: Station, columns: dict[str, np.ndarray]
+) -> TankSeries:
+    """:func:`tank_prediction_series` over columns from :func:`station_columns`."""
+    good = _good_mask(columns)
+    if not np.any(good):
+        return TankSeries([], np.empty(0), None)
+    prediction = predict_tank_water(
+        site=site,
+        tank=tank,
+        station=station,
+        temperature=columns["temperature_c"][good],
+        salinity=columns["salinity"][good],
+        ph_total=columns["ph_total"][good],
+        alkalinity=columns["alkalinity_used_umol_kg"][good],
+        with_uncertainty=False,  # the series carries values only
+    )
+    return _series(good_times=columns["observed_at"][good], prediction=prediction)
+
+
+def _series(*, good_times: Any, prediction: Any) -> TankSeries:
     return TankSeries(
-        [r.observed_at for r in good],
+        good_times,
         np.atleast_1d(prediction.omega_aragonite),
         None
         if prediction.treated_omega_aragonite is None
@@ -384,13 +409,14 @@ def tank_status(
 ) -> dict[str, Any]:
     station = tank.source_station
     # One reading either side of the day so that pieces crossing midnight are counted.
-    readings = station_readings(
+    readings = station_columns(
         session=session,
         station_pk=station.pk,
         start=window.start - max_gap,
         end=window.as_of + max_gap,
+        names=_GOOD_COLUMNS,
     )
-    series = tank_prediction_series(site=site, tank=tank, station=station, readings=readings)
+    series = _tank_series_from_columns(site=site, tank=tank, station=station, columns=readings)
     floor = float(tank.omega_floor)
     span = {"start": window.start, "end": window.as_of, "max_gap": max_gap}
     minutes = compute.minutes_below(series.times, series.larvae_omega, floor, **span)
