@@ -38,3 +38,28 @@ def test_outages_break_the_line():
     t, v = _with_breaks(Series("x", times, [1.0, 2.0, 3.0]), timedelta(minutes=30))
     assert t.size == 4
     assert np.isnan(v[2]) and list(v[[0, 1, 3]]) == [1.0, 2.0, 3.0]
+
+
+def test_long_titles_wrap_and_type_stays_large_for_a_phone_card():
+    """A station card is about 320 px wide on a 390 px phone; the figure is drawn about that
+    wide, so its smallest type (in SVG units) is close to what the phone shows."""
+    import re
+
+    times = [T0 + timedelta(minutes=15 * k) for k in range(96 * 7)]
+    title = "Bay intake, after the sand filter: omega aragonite, last 7 days"
+    svg = omega_week_svg(
+        title=title,
+        in_situ=Series("in situ", times, [1.4] * len(times)),
+        at_tank_temperature=[Series("at tank temperature 25 °C", times, [2.0] * len(times))],
+        floors=[("tank floor 1.5", 1.5)],
+        start=T0, end=T0 + timedelta(days=7), timezone="UTC",
+    )
+    root = ET.fromstring(svg.encode())
+    texts = [t.text or "" for t in root.iter(SVG_NS + "text")]
+    # The title is there in full, over two lines, none longer than the line limit.
+    title_lines = [t for t in texts if t and t in title]
+    assert " ".join(title_lines) == title and len(title_lines) == 2
+    view_width = float(root.get("viewBox").split()[2])
+    assert view_width <= 330
+    sizes = [float(s) for s in re.findall(r"font-size: ([\d.]+)px", svg)]
+    assert min(sizes) >= 9.5
