@@ -14,7 +14,7 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-from sqlalchemy import String, select, type_coerce
+from sqlalchemy import String, func, select, type_coerce
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -152,6 +152,42 @@ def station_columns(
         else:
             out[name] = np.array(values, dtype=float)  # None becomes NaN
     return out
+
+
+def usual_sampling_interval(
+    *, session: Session, station_pk: int, start: datetime, end: datetime
+) -> timedelta | None:
+    """:func:`compute.infer_sampling_interval` of the station's readings in [start, end).
+
+    The database counts the spacings between distinct reading times (to the millisecond)
+    and sends a few rows instead of a week of timestamps; the median is taken from the
+    counts (:func:`compute.median_spacing_from_counts`).
+    """
+    if session.get_bind().dialect.name == "sqlite":
+        # Julian days to seconds; SQLite's date functions keep milliseconds.
+        epoch = (func.julianday(Reading.observed_at) - 2440587.5) * 86400.0
+    else:
+        epoch = func.extract("epoch", Reading.observed_at)
+    times = (
+        select(epoch.label("t"))
+        .where(
+            Reading.station_pk == station_pk,
+            Reading.observed_at >= start,
+            Reading.observed_at < end,
+        )
+        .distinct()
+        .subquery()
+    )
+    spacings = select(
+        (times.c.t - func.lag(times.c.t).over(order_by=times.c.t)).label("spacing")
+    ).subquery()
+    rounded = func.round(spacings.c.spacing, 3)
+    rows = session.execute(
+        select(rounded, func.count()).where(spacings.c.spacing > 0).group_by(rounded)
+    ).all()
+    return compute.median_spacing_from_counts(
+        [float(spacing) for spacing, _ in rows], [int(count) for _, count in rows]
+    )
 
 
 def latest_reading(*, session: Session, station_pk: int, before: datetime) -> Reading | None:
@@ -360,13 +396,9 @@ def station_status(
         names=("qc_overall", *DAY_VARIABLES),
     )
     usable = day["qc_overall"] != QC_FAIL
-    history = station_columns(
-        session=session,
-        station_pk=station.pk,
-        start=window.as_of - LOOKBACK,
-        end=window.as_of,
-    )["observed_at"]
-    inferred = compute.infer_sampling_interval(history)
+    inferred = usual_sampling_interval(
+        session=session, station_pk=station.pk, start=window.as_of - LOOKBACK, end=window.as_of
+    )
     interval = inferred or FALLBACK_SAMPLING_INTERVAL
     latest = latest_reading(session=session, station_pk=station.pk, before=window.as_of)
     return {
@@ -518,6 +550,11 @@ def fill_window_hints(
             hint = compute.fill_window_hint(
                 week["observed_at"][good], omega, timezone=site.timezone
             )
+            now_vs_history = current_against_medians(
+                times=week["observed_at"][good], omega=omega, best_medians=[
+                    hint.hourly_median[h] for h in hint.best_hours
+                ],
+            )
             hints.append(
                 {
                     "station_id": station.id,
@@ -535,9 +572,48 @@ def fill_window_hints(
                     },
                     "lookback_days": LOOKBACK.days,
                     **hint.as_dict(),
+                    **now_vs_history,
                 }
             )
     return hints
+
+
+#: The latest value is "far below" the best hours' medians when it is under this fraction of
+#: the lowest of them (design default: a quarter lower is more than a day-night swing).
+FAR_BELOW_MEDIAN_FRACTION = 0.75
+
+
+def current_against_medians(
+    *, times: Any, omega: Any, best_medians: Sequence[float | None]
+) -> dict[str, Any]:
+    """The latest value beside the best hours' medians, and a note when it is far below them.
+
+    The medians summarise the past week; during an event (an upwelling under way) the water
+    now can be far from them, and the hint must not read as a forecast.
+    """
+    values = np.asarray(omega, dtype=float)
+    finite = np.flatnonzero(np.isfinite(values))
+    medians = [m for m in best_medians if m is not None]
+    if finite.size == 0:
+        return {"current_omega_aragonite": None, "current_observed_at": None,
+                "current_far_below": False, "current_note": None}
+    last = int(finite[-1])
+    current = float(values[last])
+    observed = times[last]
+    if isinstance(observed, np.datetime64):
+        observed = datetime.fromtimestamp(
+            observed.astype("datetime64[us]").astype(np.int64) / 1e6, tz=UTC)
+    far_below = bool(medians) and current < FAR_BELOW_MEDIAN_FRACTION * min(medians)
+    note = None
+    if far_below:
+        note = (
+            f"The latest value, {current:.2f}, is far below these medians "
+            f"({min(medians):.2f} to {max(medians):.2f}): the medians are the past week, not a "
+            "forecast, and the water now differs (an upwelling or other event may be under "
+            "way). Measure the intake before filling."
+        )
+    return {"current_omega_aragonite": current, "current_observed_at": observed,
+            "current_far_below": far_below, "current_note": note}
 
 
 def alert_summary(alert: Alert, rule: AlertRule, tanks_by_pk: dict[int, Tank],
