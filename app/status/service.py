@@ -14,7 +14,7 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-from sqlalchemy import String, func, select, type_coerce
+from sqlalchemy import String, select, type_coerce
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -152,42 +152,6 @@ def station_columns(
         else:
             out[name] = np.array(values, dtype=float)  # None becomes NaN
     return out
-
-
-def usual_sampling_interval(
-    *, session: Session, station_pk: int, start: datetime, end: datetime
-) -> timedelta | None:
-    """:func:`compute.infer_sampling_interval` of the station's readings in [start, end).
-
-    The database counts the spacings between distinct reading times (to the millisecond)
-    and sends a few rows instead of a week of timestamps; the median is taken from the
-    counts (:func:`compute.median_spacing_from_counts`).
-    """
-    if session.get_bind().dialect.name == "sqlite":
-        # Julian days to seconds; SQLite's date functions keep milliseconds.
-        epoch = (func.julianday(Reading.observed_at) - 2440587.5) * 86400.0
-    else:
-        epoch = func.extract("epoch", Reading.observed_at)
-    times = (
-        select(epoch.label("t"))
-        .where(
-            Reading.station_pk == station_pk,
-            Reading.observed_at >= start,
-            Reading.observed_at < end,
-        )
-        .distinct()
-        .subquery()
-    )
-    spacings = select(
-        (times.c.t - func.lag(times.c.t).over(order_by=times.c.t)).label("spacing")
-    ).subquery()
-    rounded = func.round(spacings.c.spacing, 3)
-    rows = session.execute(
-        select(rounded, func.count()).where(spacings.c.spacing > 0).group_by(rounded)
-    ).all()
-    return compute.median_spacing_from_counts(
-        [float(spacing) for spacing, _ in rows], [int(count) for _, count in rows]
-    )
 
 
 def latest_reading(*, session: Session, station_pk: int, before: datetime) -> Reading | None:
@@ -396,9 +360,13 @@ def station_status(
         names=("qc_overall", *DAY_VARIABLES),
     )
     usable = day["qc_overall"] != QC_FAIL
-    inferred = usual_sampling_interval(
-        session=session, station_pk=station.pk, start=window.as_of - LOOKBACK, end=window.as_of
-    )
+    history = station_columns(
+        session=session,
+        station_pk=station.pk,
+        start=window.as_of - LOOKBACK,
+        end=window.as_of,
+    )["observed_at"]
+    inferred = compute.infer_sampling_interval(history)
     interval = inferred or FALLBACK_SAMPLING_INTERVAL
     latest = latest_reading(session=session, station_pk=station.pk, before=window.as_of)
     return {
