@@ -315,7 +315,7 @@ def test_treatment_chemicals_are_the_dose_calculators():
         (
             {"treatment": {"chemical": "sodium_carbonate", "dose_mg_per_l": 900}},
             "dose_mg_per_l",
-            "less than or equal to 500",
+            "less than or equal to 100",
         ),
         ({"source_station_id": "outfall"}, "source_station_id", "not a station of site"),
     ],
