@@ -5,33 +5,8 @@ A pure numpy/scipy library: no web, database or file I/O imports. Sources are li
 """
 
 from .constants import EquilibriumConstants, equilibrium_constants
-from .errors import ChemistryInputError
-from .scales import NBS_WARNING, PH_SCALES, convert_ph
-from .solver import CarbonateState, alkalinity_contributions, solve
-from .transforms import at_temperature, equilibrate_with_air, mix
-
-# Stored with every derived reading so that a change of constants or method is traceable.
-CHEMISTRY_VERSION = "2026.12.1"
-
-__all__ = [
-    "CHEMISTRY_VERSION",
-    "NBS_WARNING",
-    "PH_SCALES",
-    "CarbonateState",
-    "ChemistryInputError",
-    "EquilibriumConstants",
-    "alkalinity_contributions",
-    "at_temperature",
-    "convert_ph",
-    "equilibrate_with_air",
-    "equilibrium_constants",
-    "mix",
-    "solve",
-]
-
-# --- chem-applied exports (density, units, dosing, uncertainty, fitting) go below this line ---
-from .density import seawater_density  # noqa: E402
-from .dosing import (  # noqa: E402
+from .density import seawater_density
+from .dosing import (
     CHEMICALS,
     DOSING_CAUTION,
     DoseAdvice,
@@ -39,27 +14,47 @@ from .dosing import (  # noqa: E402
     add_chemical,
     dose_for_target,
 )
-from .fitting import AlkalinitySalinityFit, fit_alkalinity_salinity  # noqa: E402
-from .uncertainty import (  # noqa: E402
+from .errors import ChemistryInputError
+from .fitting import AlkalinitySalinityFit, fit_alkalinity_salinity
+from .scales import NBS_WARNING, PH_SCALES, convert_ph
+from .solver import CarbonateState, alkalinity_contributions, solve
+from .transforms import at_temperature, equilibrate_with_air, mix
+from .uncertainty import (
     ORR2018_CONSTANT_UNCERTAINTIES,
     probability_below,
     standard_uncertainty,
 )
-from .units import alkalinity_from_mg_per_l_caco3, mg_per_l_caco3_from_alkalinity  # noqa: E402
+from .units import alkalinity_from_mg_per_l_caco3, mg_per_l_caco3_from_alkalinity
 
-__all__ += [
+# Stored with every derived reading so that a change of constants or method is traceable.
+CHEMISTRY_VERSION = "2026.12.1"
+
+__all__ = [
     "CHEMICALS",
+    "CHEMISTRY_VERSION",
     "DOSING_CAUTION",
+    "NBS_WARNING",
     "ORR2018_CONSTANT_UNCERTAINTIES",
+    "PH_SCALES",
     "AlkalinitySalinityFit",
+    "CarbonateState",
+    "ChemistryInputError",
     "DoseAdvice",
     "DoseRefusedError",
+    "EquilibriumConstants",
     "add_chemical",
+    "alkalinity_contributions",
     "alkalinity_from_mg_per_l_caco3",
+    "at_temperature",
+    "convert_ph",
     "dose_for_target",
+    "equilibrate_with_air",
+    "equilibrium_constants",
     "fit_alkalinity_salinity",
     "mg_per_l_caco3_from_alkalinity",
+    "mix",
     "probability_below",
     "seawater_density",
+    "solve",
     "standard_uncertainty",
 ]
