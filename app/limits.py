@@ -137,11 +137,14 @@ class DuplicateKeyError(ValueError):
 
 
 def _no_duplicate_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
-    result: dict[str, Any] = {}
-    for key, value in pairs:
-        if key in result:
-            raise DuplicateKeyError(key)
-        result[key] = value
+    # The dict is built in C; only an object that lost a key to a repeat is walked in Python.
+    result = dict(pairs)
+    if len(result) != len(pairs):
+        seen: set[str] = set()
+        for key, _value in pairs:
+            if key in seen:
+                raise DuplicateKeyError(key)
+            seen.add(key)
     return result
 
 
@@ -273,10 +276,14 @@ def _device_buckets(request: Request) -> TokenBuckets | None:
     return buckets
 
 
-def limit_device_rate(
+async def limit_device_rate(
     request: Request, principal: Annotated[Principal, Depends(require_device)]
 ) -> Principal:
-    """Admit a device's request, or answer 429 with ``Retry-After`` when it posts too often."""
+    """Admit a device's request, or answer 429 with ``Retry-After`` when it posts too often.
+
+    async because it does no I/O (the bucket's lock is held for a few arithmetic steps):
+    a sync dependency would cost a thread-pool hop on every reading posted.
+    """
     buckets = _device_buckets(request)
     if buckets is None:
         return principal

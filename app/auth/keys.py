@@ -12,12 +12,14 @@ import hashlib
 import hmac
 import logging
 import secrets
+from dataclasses import dataclass
 
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
 from app.auth.models import ApiKey
 from app.db import utcnow
+from app.sites.models import Device
 
 KEY_PREFIX = "spl_"
 KEY_RANDOM_BYTES = 32
@@ -78,12 +80,66 @@ def find_active_key(*, session: Session, plaintext: str) -> ApiKey | None:
     return api_key
 
 
+@dataclass(frozen=True, slots=True)
+class KeyCredentials:
+    """What a request needs to know about its key, and the key's device if it has one."""
+
+    id: int
+    role: str
+    label: str
+    last_used_at: dt.datetime | None
+    device_id: str | None
+    device_found: bool
+    device_revoked: bool
+    station_pk: int | None
+
+
+def find_active_credentials(*, session: Session, plaintext: str) -> KeyCredentials | None:
+    """The unrevoked key matching ``plaintext`` with its device, in one query; or None.
+
+    Every API request runs this: one round trip (the key and its device joined, as plain
+    columns) instead of a key object and then a device object.
+    """
+    digest = hash_key(plaintext)
+    row = session.execute(
+        select(
+            ApiKey.id,
+            ApiKey.key_hash,
+            ApiKey.role,
+            ApiKey.label,
+            ApiKey.revoked_at,
+            ApiKey.last_used_at,
+            ApiKey.device_id,
+            Device.id.label("found_device_id"),
+            Device.revoked_at.label("device_revoked_at"),
+            Device.station_pk,
+        )
+        .outerjoin(Device, Device.id == ApiKey.device_id)
+        .where(ApiKey.key_hash == digest)
+    ).one_or_none()
+    # As in find_active_key: the final comparison is constant-time.
+    if row is None or not hmac.compare_digest(row.key_hash, digest):
+        return None
+    if row.revoked_at is not None:
+        return None
+    return KeyCredentials(
+        id=row.id,
+        role=row.role,
+        label=row.label,
+        last_used_at=row.last_used_at,
+        device_id=row.device_id,
+        device_found=row.found_device_id is not None,
+        device_revoked=row.device_revoked_at is not None,
+        station_pk=row.station_pk,
+    )
+
+
 def touch_key(*, session: Session, key_id: int, now: dt.datetime | None = None) -> None:
     """Record that the key was used (one UPDATE; the caller commits)."""
     session.execute(update(ApiKey).where(ApiKey.id == key_id).values(last_used_at=now or utcnow()))
 
 
-def needs_touch(api_key: ApiKey, now: dt.datetime) -> bool:
+def needs_touch(api_key: ApiKey | KeyCredentials, now: dt.datetime) -> bool:
     return api_key.last_used_at is None or now - api_key.last_used_at >= LAST_USED_RESOLUTION
 
 
