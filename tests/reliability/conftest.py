@@ -2,43 +2,22 @@
 
 from __future__ import annotations
 
-import secrets
-
 import pytest
 from sqlalchemy.orm import Session
 
-from app import migrate
 from app.auth.keys import create_key
-from app.db import make_engine
-from app.settings import Settings
 from app.sites import service as sites_service
-from app.sites.schemas import SiteCreate, StationCreate
 from tests.reliability.server import ServerProcess
+from tests.scratch import add_site_with_intake, migrated_engine
 
 
 @pytest.fixture(scope="session")
 def served(tmp_path_factory):
     directory = tmp_path_factory.mktemp("served")
     url = f"sqlite:///{directory / 'served.db'}"
-    settings = Settings(
-        _env_file=None, environment="test", database_url=url, secret_key=secrets.token_urlsafe(32)
-    )
-    migrate.upgrade(settings, "head")
-    engine = make_engine(settings)
+    _settings, engine = migrated_engine(url)
     with Session(engine) as session:
-        site = sites_service.create_site(
-            session=session, data=SiteCreate(id="cove", name="Cove", timezone="UTC")
-        )
-        station = sites_service.create_station(
-            session=session,
-            site=site,
-            data=StationCreate(
-                id="intake",
-                name="Intake",
-                role="intake",
-                alkalinity={"mode": "fixed", "value": 2150.0},
-            ),
-        )
+        _site, station = add_site_with_intake(session)
         _device, device_key = sites_service.create_device(session=session, station=station)
         _, admin_key = create_key(session=session, role="admin", label="admin")
         session.commit()

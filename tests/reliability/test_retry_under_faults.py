@@ -24,13 +24,12 @@ from sqlalchemy import func, select, text
 from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
-from app import migrate
 from app.db import make_engine
 from app.readings.models import Reading
 from app.settings import Settings
 from app.sites import service as sites_service
-from app.sites.schemas import SiteCreate, StationCreate
 from tests.reliability.server import ServerProcess
+from tests.scratch import add_site_with_intake, migrated_engine
 
 pytestmark = pytest.mark.slow
 
@@ -46,29 +45,10 @@ START = dt.datetime(2026, 3, 1, tzinfo=dt.UTC)
 
 def _prepare(database_url: str) -> list[str]:
     """Migrate the scratch database; a site, a station and one device key per client."""
-    settings = Settings(
-        _env_file=None,
-        environment="test",
-        database_url=database_url,
-        secret_key=secrets.token_urlsafe(32),
-    )
-    migrate.upgrade(settings, "head")
-    engine = make_engine(settings)
+    _settings, engine = migrated_engine(database_url)
     keys = []
     with Session(engine) as session:
-        site = sites_service.create_site(
-            session=session, data=SiteCreate(id="cove", name="Cove", timezone="UTC")
-        )
-        station = sites_service.create_station(
-            session=session,
-            site=site,
-            data=StationCreate(
-                id="intake",
-                name="Intake",
-                role="intake",
-                alkalinity={"mode": "fixed", "value": 2150.0},
-            ),
-        )
+        _site, station = add_site_with_intake(session)
         for n in range(CLIENTS):
             _device, key = sites_service.create_device(
                 session=session, station=station, label=f"probe {n}"

@@ -11,8 +11,6 @@ whole run stays within a few minutes.
 
 from __future__ import annotations
 
-import secrets
-
 import pytest
 import schemathesis
 from hypothesis import HealthCheck, given, settings
@@ -24,13 +22,12 @@ from schemathesis.checks import (
 )
 from sqlalchemy.orm import Session
 
-from app import migrate
 from app.auth.keys import create_key
-from app.db import make_engine
 from app.main import create_app
 from app.settings import Settings
 from app.sites import service as sites_service
-from app.sites.schemas import SiteCreate, StationCreate, TankCreate
+from app.sites.schemas import TankCreate
+from tests.scratch import add_site_with_intake, migrated_engine
 
 pytestmark = pytest.mark.slow
 
@@ -47,30 +44,13 @@ KEYS: dict[str, str] = {}
 @pytest.fixture(scope="module")
 def api_schema(tmp_path_factory):
     url = f"sqlite:///{tmp_path_factory.mktemp('schemathesis') / 'api.db'}"
-    app_settings = Settings(
-        _env_file=None,
-        environment="test",
-        database_url=url,
-        secret_key=secrets.token_urlsafe(32),
+    app_settings, engine = migrated_engine(
+        url,
         run_worker_in_serve=False,
         device_requests_per_minute=0,  # generated calls come faster than any device
     )
-    migrate.upgrade(app_settings, "head")
-    engine = make_engine(app_settings)
     with Session(engine) as session:
-        site = sites_service.create_site(
-            session=session, data=SiteCreate(id="cove", name="Cove", timezone="UTC")
-        )
-        station = sites_service.create_station(
-            session=session,
-            site=site,
-            data=StationCreate(
-                id="intake",
-                name="Intake",
-                role="intake",
-                alkalinity={"mode": "fixed", "value": 2150.0},
-            ),
-        )
+        site, station = add_site_with_intake(session)
         sites_service.create_tank(
             session=session,
             site=site,

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import datetime as dt
-import secrets
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -11,15 +10,12 @@ import numpy as np
 import pytest
 from sqlalchemy import func, select
 
-from app import migrate
 from app.cli import main
 from app.cli.importer import ImportOptions, ImportSetupError, import_csv
-from app.db import make_engine, make_sessionmaker
+from app.db import make_sessionmaker
 from app.readings.models import Reading
-from app.settings import Settings
-from app.sites import service as sites_service
-from app.sites.schemas import SiteCreate, StationCreate
 from chemistry import alkalinity_from_mg_per_l_caco3, solve
+from tests.scratch import add_site_with_intake, migrated_engine
 
 DEFAULT_COLUMNS = {
     "observed_at": "observed_at",
@@ -221,24 +217,10 @@ def test_command_line_end_to_end(tmp_path, monkeypatch, capsys):
     url = f"sqlite:///{tmp_path / 'cli.db'}"
     monkeypatch.setenv("SPATLINE_DATABASE_URL", url)
     monkeypatch.setenv("SPATLINE_ENVIRONMENT", "development")
-    settings = Settings(_env_file=None, database_url=url, secret_key=secrets.token_urlsafe(32))
-    migrate.upgrade(settings, "head")
-    engine = make_engine(settings)
+    _settings, engine = migrated_engine(url)
     try:
         with make_sessionmaker(engine)() as session:
-            site = sites_service.create_site(
-                session=session, data=SiteCreate(id="cove", name="Cove", timezone="UTC")
-            )
-            sites_service.create_station(
-                session=session,
-                site=site,
-                data=StationCreate(
-                    id="intake",
-                    name="Intake",
-                    role="intake",
-                    alkalinity={"mode": "fixed", "value": 2150.0},
-                ),
-            )
+            add_site_with_intake(session)
             session.commit()
         path = write(tmp_path, LOGGER_FILE)
         argv = [

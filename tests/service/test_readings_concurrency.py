@@ -23,9 +23,8 @@ from sqlalchemy.orm import Session
 from app.db import make_sessionmaker
 from app.readings.ingest import IngestResult, ingest_readings
 from app.readings.models import Reading
-from app.sites import service as sites_service
 from app.sites.models import Site, Station
-from app.sites.schemas import SiteCreate, StationCreate
+from tests.scratch import add_site_with_intake
 
 pytestmark = pytest.mark.db
 
@@ -37,19 +36,7 @@ READINGS = 60
 def race_station(engine):
     site_id = f"race-{os.getpid()}"
     with Session(engine) as session:
-        site = sites_service.create_site(
-            session=session, data=SiteCreate(id=site_id, name="Race", timezone="UTC")
-        )
-        station = sites_service.create_station(
-            session=session,
-            site=site,
-            data=StationCreate(
-                id="intake",
-                name="Intake",
-                role="intake",
-                alkalinity={"mode": "fixed", "value": 2150.0},
-            ),
-        )
+        _site, station = add_site_with_intake(session, site_id=site_id, site_name="Race")
         session.commit()
         station_pk = station.pk
     yield station_pk
