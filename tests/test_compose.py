@@ -39,7 +39,7 @@ def test_app_serves_on_port_8000_after_the_database_is_healthy(compose: dict) ->
     assert "healthcheck" in compose["services"]["db"]
 
 
-def test_app_talks_to_the_compose_database_and_mail_catcher(compose: dict) -> None:
+def test_app_connects_to_the_compose_database_and_mail_catcher(compose: dict) -> None:
     environment = _environment(compose["services"]["app"])
     database_url = environment["SPATLINE_DATABASE_URL"]
     assert database_url.startswith("postgresql+psycopg://")
