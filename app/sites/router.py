@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from typing import NoReturn
+from collections.abc import Callable
+from typing import NoReturn, TypeVar
 
 from fastapi import APIRouter, HTTPException, Response, status
 from fastapi.exceptions import RequestValidationError
@@ -28,6 +29,8 @@ from app.sites.schemas import (
 )
 
 router = APIRouter(prefix="/sites", tags=["sites"])
+
+Saved = TypeVar("Saved")
 
 
 def _not_found(detail: str) -> HTTPException:
@@ -68,13 +71,25 @@ def _raise_for(error: service.SiteConfigError) -> NoReturn:
     raise HTTPException(status_code=status.HTTP_400_BAD_REQUEST, detail=str(error))
 
 
-def _commit(session: Session, conflict: str) -> None:
-    """Commit; a unique-key race lost to a concurrent request answers 409."""
+def _save(session: Session, change: Callable[[], Saved], *, conflict: str | None = None) -> Saved:
+    """Apply one service change and commit it; a refused change leaves nothing behind.
+
+    ``conflict`` is the 409 sentence for a create that loses a unique-key race to a
+    concurrent request (the service's own check found no such id a moment before).
+    """
+    try:
+        saved = change()
+    except service.SiteConfigError as error:
+        session.rollback()
+        _raise_for(error)
     try:
         session.commit()
     except IntegrityError:
         session.rollback()
+        if conflict is None:
+            raise
         raise HTTPException(status_code=status.HTTP_409_CONFLICT, detail=conflict) from None
+    return saved
 
 
 # --- sites -----------------------------------------------------------------------------
@@ -82,12 +97,11 @@ def _commit(session: Session, conflict: str) -> None:
 
 @router.post("", status_code=status.HTTP_201_CREATED, response_model=SitePublic)
 def create_site(body: SiteCreate, session: SessionDep, _: AdminDep) -> Site:
-    try:
-        site = service.create_site(session=session, data=body)
-    except service.SiteConfigError as error:
-        _raise_for(error)
-    _commit(session, f"A site with id {body.id!r} already exists.")
-    return site
+    return _save(
+        session,
+        lambda: service.create_site(session=session, data=body),
+        conflict=f"A site with id {body.id!r} already exists.",
+    )
 
 
 @router.get("", response_model=list[SitePublic])
@@ -118,11 +132,11 @@ def create_station(
     site_id: str, body: StationCreate, session: SessionDep, _: AdminDep
 ) -> StationPublic:
     site = _site_or_404(session, site_id)
-    try:
-        station = service.create_station(session=session, site=site, data=body)
-    except service.SiteConfigError as error:
-        _raise_for(error)
-    _commit(session, f"Site {site_id!r} already has a station with id {body.id!r}.")
+    station = _save(
+        session,
+        lambda: service.create_station(session=session, site=site, data=body),
+        conflict=f"Site {site_id!r} already has a station with id {body.id!r}.",
+    )
     return service.station_public(station)
 
 
@@ -145,12 +159,7 @@ def update_station(
     site_id: str, station_id: str, body: StationUpdate, session: SessionDep, _: AdminDep
 ) -> StationPublic:
     station = _station_or_404(session, site_id, station_id)
-    try:
-        service.update_station(session=session, station=station, data=body)
-    except service.SiteConfigError as error:
-        session.rollback()
-        _raise_for(error)
-    session.commit()
+    _save(session, lambda: service.update_station(session=session, station=station, data=body))
     return service.station_public(station)
 
 
@@ -160,11 +169,11 @@ def update_station(
 @router.post("/{site_id}/tanks", status_code=status.HTTP_201_CREATED, response_model=TankPublic)
 def create_tank(site_id: str, body: TankCreate, session: SessionDep, _: AdminDep) -> TankPublic:
     site = _site_or_404(session, site_id)
-    try:
-        tank = service.create_tank(session=session, site=site, data=body)
-    except service.SiteConfigError as error:
-        _raise_for(error)
-    _commit(session, f"Site {site_id!r} already has a tank with id {body.id!r}.")
+    tank = _save(
+        session,
+        lambda: service.create_tank(session=session, site=site, data=body),
+        conflict=f"Site {site_id!r} already has a tank with id {body.id!r}.",
+    )
     return service.tank_public(tank)
 
 
@@ -186,12 +195,7 @@ def update_tank(
     site_id: str, tank_id: str, body: TankUpdate, session: SessionDep, _: AdminDep
 ) -> TankPublic:
     tank = _tank_or_404(session, site_id, tank_id)
-    try:
-        service.update_tank(session=session, tank=tank, data=body)
-    except service.SiteConfigError as error:
-        session.rollback()
-        _raise_for(error)
-    session.commit()
+    _save(session, lambda: service.update_tank(session=session, tank=tank, data=body))
     return service.tank_public(tank)
 
 
