@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Annotated, Literal
 
 from fastapi import APIRouter, HTTPException, Query, Request, Response, status
@@ -42,6 +44,27 @@ def _site(session: Session, site_id: str) -> None:
         rules_module.get_site(session=session, site_id=site_id)
     except rules_module.NotFoundError as error:
         raise _not_found(error) from None
+
+
+@contextmanager
+def _refusals_answered(
+    session: Session, *, refused: int = 422
+) -> Iterator[None]:
+    """A lookup that misses answers 404 and a refused change ``refused``; neither is kept."""
+    try:
+        yield
+    except rules_module.NotFoundError as error:
+        session.rollback()
+        raise _not_found(error) from None
+    except rules_module.RuleInputError as error:
+        session.rollback()
+        raise HTTPException(status_code=refused, detail=str(error)) from None
+
+
+def _notification_public(row: OutboxMessage, public_url: str) -> NotificationPublic:
+    item = NotificationPublic.model_validate(row)
+    item.body_text = fill_public_url(row.body_text, public_url)
+    return item
 
 
 def _rule_public(session: Session, rule: AlertRule) -> AlertRulePublic:
@@ -123,7 +146,7 @@ def read_tank_advice(
         advice = advice_module.tank_advice(session=session, site=site, tank=tank, chemical=chemical)
     except chemistry.ChemistryInputError as error:
         raise HTTPException(
-            status_code=status.HTTP_422_UNPROCESSABLE_ENTITY,
+            status_code=422,
             detail=f"The latest reading cannot be carried to the tank: {error}",
         ) from None
     if advice is None:
@@ -145,14 +168,8 @@ def create_alert_rule(
     site_id: str, body: AlertRuleCreate, session: SessionDep, _: AdminDep
 ) -> AlertRulePublic:
     _site(session, site_id)
-    try:
+    with _refusals_answered(session):
         rule = rules_module.create_rule(session=session, site_id=site_id, data=body)
-    except rules_module.NotFoundError as error:
-        session.rollback()
-        raise _not_found(error) from None
-    except rules_module.RuleInputError as error:
-        session.rollback()
-        raise HTTPException(status_code=422, detail=str(error)) from None
     session.commit()
     return _rule_public(session, rule)
 
@@ -178,14 +195,9 @@ def list_alert_rules(site_id: str, session: SessionDep, _: ReaderDep) -> list[Al
 def update_alert_rule(
     site_id: str, rule_id: RowId, body: AlertRuleUpdate, session: SessionDep, _: AdminDep
 ) -> AlertRulePublic:
-    try:
+    with _refusals_answered(session):
         rule = rules_module.get_rule(session=session, site_id=site_id, rule_id=rule_id)
         rules_module.update_rule(session=session, rule=rule, data=body)
-    except rules_module.NotFoundError as error:
-        raise _not_found(error) from None
-    except rules_module.RuleInputError as error:
-        session.rollback()
-        raise HTTPException(status_code=422, detail=str(error)) from None
     session.commit()
     return _rule_public(session, rule)
 
@@ -240,13 +252,10 @@ def acknowledge_alert(alert_id: RowId, session: SessionDep, principal: ReaderDep
     alert = session.get(Alert, alert_id)
     if alert is None:
         raise HTTPException(status_code=404, detail=f"No alert with id {alert_id}.")
-    try:
+    with _refusals_answered(session, refused=status.HTTP_409_CONFLICT):
         rules_module.acknowledge_alert(
             session=session, alert=alert, who=f"{principal.label} (key {principal.key_id})"
         )
-    except rules_module.RuleInputError as error:
-        session.rollback()
-        raise HTTPException(status_code=status.HTTP_409_CONFLICT, detail=str(error)) from None
     session.commit()
     return _alert_public(session, alert)
 
@@ -262,15 +271,10 @@ def resend_notification(
     row = session.get(OutboxMessage, notification_id)
     if row is None:
         raise HTTPException(status_code=404, detail=f"No notification with id {notification_id}.")
-    try:
+    with _refusals_answered(session, refused=status.HTTP_409_CONFLICT):
         rules_module.requeue_notification(session=session, row=row, now=utcnow())
-    except rules_module.RuleInputError as error:
-        session.rollback()
-        raise HTTPException(status_code=status.HTTP_409_CONFLICT, detail=str(error)) from None
     session.commit()
-    item = NotificationPublic.model_validate(row)
-    item.body_text = fill_public_url(row.body_text, request.app.state.settings.public_url)
-    return item
+    return _notification_public(row, request.app.state.settings.public_url)
 
 
 @router.get(
@@ -299,9 +303,4 @@ def list_notifications(
         .limit(limit)
     )
     public_url = request.app.state.settings.public_url
-    result = []
-    for row in rows:
-        item = NotificationPublic.model_validate(row)
-        item.body_text = fill_public_url(row.body_text, public_url)
-        result.append(item)
-    return result
+    return [_notification_public(row, public_url) for row in rows]
