@@ -112,7 +112,12 @@ def no_data_observation(rule: AlertRule, latest: dt.datetime | None, now: dt.dat
 
 
 def _value_observations(
-    site: Site, rule: AlertRule, tank: Tank | None, station: Station, readings: Sequence[Reading]
+    site: Site,
+    rule: AlertRule,
+    tank: Tank | None,
+    station: Station,
+    readings: Sequence[Reading],
+    tank_predictions: dict[int, Any] | None = None,
 ) -> list[Observed]:
     thresholds = thresholds_of(rule)
     if rule.metric == "qc_failed":
@@ -132,6 +137,11 @@ def _value_observations(
         ]
         if not usable or tank is None:
             return []
+        # Several rules may watch one tank (warning and critical levels): the prediction
+        # with its uncertainty is the dear part, so it is made once per tank per call.
+        if tank_predictions is not None and tank.pk in tank_predictions:
+            omega, uncertainty = tank_predictions[tank.pk]
+            return _with_probability(thresholds, usable, omega, uncertainty)
         prediction = advice_module.predict_tank_water(
             site=site,
             tank=tank,
@@ -144,11 +154,11 @@ def _value_observations(
         )
         # What the larvae get: the treated water, unless the treatment is outside the dose
         # limits (then the untreated water, so an absurd dose cannot silence the alert).
-        omega = prediction.larvae_omega_aragonite
-        uncertainty = prediction.larvae_omega_aragonite_uncertainty
-        return _with_probability(
-            thresholds, usable, np.atleast_1d(omega), np.atleast_1d(uncertainty)
-        )
+        omega = np.atleast_1d(prediction.larvae_omega_aragonite)
+        uncertainty = np.atleast_1d(prediction.larvae_omega_aragonite_uncertainty)
+        if tank_predictions is not None:
+            tank_predictions[tank.pk] = (omega, uncertainty)
+        return _with_probability(thresholds, usable, omega, uncertainty)
     if rule.metric not in READING_COLUMN:
         return []  # judged by its own module (sensor_drift: app.samples.drift)
     column = READING_COLUMN[rule.metric]
@@ -357,6 +367,7 @@ def evaluate_after_ingest(
     site = session.get(Site, station.site_id)
     assert site is not None
     ordered = sorted(readings, key=lambda r: r.observed_at)
+    tank_predictions: dict[int, Any] = {}
     latest = None
     for rule, tank in rules:
         if rule.metric not in INGEST_METRICS:
@@ -367,7 +378,7 @@ def evaluate_after_ingest(
                 latest = _latest_observed_at(session, station.pk)
             observed = [no_data_observation(rule, latest, now)]
         else:
-            observed = _value_observations(site, rule, tank, station, ordered)
+            observed = _value_observations(site, rule, tank, station, ordered, tank_predictions)
         if observed:
             apply_observations(ctx, observed)
 

@@ -15,6 +15,7 @@ Two requests racing with the same reading are settled by the unique constraints
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import logging
 import math
 from collections.abc import Mapping, Sequence
@@ -26,10 +27,12 @@ import numpy as np
 from sqlalchemy import (
     Connection,
     Float,
+    Select,
     String,
-    and_,
+    bindparam,
     cast,
     func,
+    or_,
     select,
     text,
     type_coerce,
@@ -62,6 +65,9 @@ DEFAULT_ALKALINITY_UNCERTAINTY: Mapping[str, float] = {
 
 # Database round trips: IN lists and executemany batches are kept at this size.
 CHUNK = 900
+# Requests of up to this many readings look up stored matches by time and id in one
+# query (the IN lists stay short).
+SMALL_REQUEST = 20
 # Rows per multi-row INSERT: about 30 columns each stays under SQLite's 32766 bound
 # parameters per statement (and PostgreSQL's 65535).
 INSERT_CHUNK = 500
@@ -149,6 +155,14 @@ def _stored_matches(
     times = [c.reading.observed_at for c in candidates]
     wanted = set(times)  # aware datetimes hash by their UTC instant, whatever the offset
     this_sensor = (Reading.station_pk == station_pk, Reading.source == source)
+    ids = [c.reading.reading_id for c in candidates if c.reading.reading_id is not None]
+    if len(candidates) <= SMALL_REQUEST:
+        # A device's usual request (a reading or a few): times and ids in one round trip.
+        parameters: dict[str, Any] = {"station_pk": station_pk, "source": source, "times": times}
+        if ids:
+            parameters["ids"] = ids
+        rows = list(session.execute(_small_match_query(bool(ids)), parameters))
+        return list({row.id: row for row in rows}.values())
     # Readings usually arrive in time order, so the span of a request holds few stored
     # rows or none: one range scan of the unique index beats binding every time. A span
     # that turns out to be crowded (a backfill between stored readings) is looked up
@@ -169,7 +183,6 @@ def _stored_matches(
                     select(*_MATCH_COLUMNS).where(*this_sensor, Reading.observed_at.in_(chunk))
                 ).all()
             )
-    ids = [c.reading.reading_id for c in candidates if c.reading.reading_id is not None]
     for chunk in _chunks(ids):
         rows.extend(
             session.execute(
@@ -391,6 +404,51 @@ def _qc_limits(station: Station) -> Mapping[str, QcLimits]:
         return limits_with_overrides(None)
 
 
+@functools.cache
+def _context_query(sqlite: bool) -> Select[Any]:
+    """The neighbours query, built once: building a select costs more than running it."""
+    # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
+    # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
+    # ``_epoch_seconds`` rounds the new readings' times).
+    observed = (
+        type_coerce(Reading.observed_at, String)
+        if sqlite
+        else cast(func.extract("epoch", Reading.observed_at), Float)
+    )
+    return (
+        select(
+            Reading.id,
+            observed,
+            Reading.temperature_c,
+            Reading.salinity,
+            Reading.ph,
+            Reading.alkalinity_input_umol_kg,
+            Reading.alkalinity_source,
+            Reading.omega_aragonite,
+            *(getattr(Reading, name) for name in QC_COLUMNS),
+        )
+        .where(
+            Reading.station_pk == bindparam("station_pk"),
+            Reading.observed_at >= bindparam("start"),
+            Reading.observed_at <= bindparam("end"),
+        )
+        .order_by(Reading.observed_at, Reading.id)
+    )
+
+
+@functools.cache
+def _small_match_query(with_ids: bool) -> Select[Any]:
+    """Stored readings of a sensor at any of ``times`` (or with any of ``ids``), built once."""
+    at_times = Reading.observed_at.in_(bindparam("times", expanding=True))
+    return select(*_MATCH_COLUMNS).where(
+        Reading.station_pk == bindparam("station_pk"),
+        Reading.source == bindparam("source"),
+        or_(at_times, Reading.reading_id.in_(bindparam("ids", expanding=True)))
+        if with_ids
+        else at_times,
+    )
+
+
 def _context_columns(
     session: Session, station_pk: int, start: dt.datetime, end: dt.datetime
 ) -> dict[str, np.ndarray]:
@@ -404,31 +462,13 @@ def _context_columns(
     # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
     # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
     # ``_epoch_seconds`` rounds the new readings' times).
-    observed = (
-        type_coerce(Reading.observed_at, String)
-        if sqlite
-        else cast(func.extract("epoch", Reading.observed_at), Float)
-    )
-    query = (
-        select(
-            Reading.id,
-            observed,
-            Reading.temperature_c,
-            Reading.salinity,
-            Reading.ph,
-            Reading.alkalinity_input_umol_kg,
-            Reading.alkalinity_source,
-            Reading.omega_aragonite,
-            *(getattr(Reading, name) for name in QC_COLUMNS),
-        )
-        .where(
-            Reading.station_pk == station_pk,
-            and_(Reading.observed_at >= start, Reading.observed_at <= end),
-        )
-        .order_by(Reading.observed_at, Reading.id)
-    )
+    query = _context_query(sqlite)
     # Core rows straight from the connection: no ORM row processing for a day of rows.
-    rows = session.connection().execute(query).all()
+    rows = (
+        session.connection()
+        .execute(query, {"station_pk": station_pk, "start": start, "end": end})
+        .all()
+    )
     names = (
         "id",
         "observed_at",
@@ -591,7 +631,12 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     for name in names:
         values = [row[name] for row in rows]
         process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
-        columns.append([process(v) for v in values] if process is not None else values)
+        if process is None:
+            columns.append(values)
+        elif name == "received_at":  # one ingest time for the whole request
+            columns.append([process(values[0])] * len(values))
+        else:
+            columns.append([process(v) for v in values])
     written = columns[names.index("observed_at")]
     by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
     statement = (
@@ -610,23 +655,28 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     return {by_text[observed_at]: row_id for row_id, observed_at in new}
 
 
+@functools.lru_cache(maxsize=8)
+def _unnest_insert(names: tuple[str, ...], dialect: Any) -> Any:
+    """The INSERT ... SELECT FROM unnest statement for these columns, built once."""
+    table = Reading.__table__
+    arrays = ", ".join(
+        f"CAST(:{name} AS {table.c[name].type.compile(dialect=dialect)}[])" for name in names
+    )
+    return text(
+        f"INSERT INTO {table.name} ({', '.join(names)}) "
+        f"SELECT * FROM unnest({arrays}) "
+        "ON CONFLICT DO NOTHING RETURNING id, observed_at"
+    ).columns(table.c.id, table.c.observed_at)
+
+
 def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> list[Any]:
     """One INSERT ... SELECT FROM unnest(arrays): one parameter per column, not per value.
 
     psycopg parses every placeholder of a statement in Python, so a multi-row VALUES with
     150,000 placeholders spends seconds there; thirty arrays cost nothing.
     """
-    table = Reading.__table__
     names = list(rows[0])
-    arrays = ", ".join(
-        f"CAST(:{name} AS {table.c[name].type.compile(dialect=connection.dialect)}[])"
-        for name in names
-    )
-    statement = text(
-        f"INSERT INTO {table.name} ({', '.join(names)}) "
-        f"SELECT * FROM unnest({arrays}) "
-        "ON CONFLICT DO NOTHING RETURNING id, observed_at"
-    ).columns(table.c.id, table.c.observed_at)
+    statement = _unnest_insert(tuple(names), connection.dialect)
     parameters = {name: [row[name] for row in rows] for name in names}
     return list(connection.execute(statement, parameters).all())
 

@@ -7,6 +7,7 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Depends, HTTPException, Query, status
 from fastapi.responses import JSONResponse, Response, StreamingResponse
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.auth.dependencies import Principal, ReaderDep, require_role
@@ -25,7 +26,7 @@ from app.readings.schemas import (
     readings_from_body,
 )
 from app.sites import service as sites_service
-from app.sites.models import Station
+from app.sites.models import Site, Station
 from app.timefmt import json_body
 
 router = APIRouter(tags=["readings"])
@@ -83,7 +84,14 @@ def post_readings(
         items = readings_from_body(payload)
     except ValueError as error:
         raise HTTPException(status.HTTP_422_UNPROCESSABLE_CONTENT, detail=str(error)) from None
-    station = session.get(Station, principal.station_pk)
+    # The station with its site in one query: the ingest's look-up of the site is then
+    # answered from the session, one round trip less on every reading posted.
+    found = session.execute(
+        select(Station, Site)
+        .join(Site, Site.id == Station.site_id)
+        .where(Station.pk == principal.station_pk)
+    ).first()
+    station = found[0] if found is not None else None
     if station is None:  # the device's station was removed while its key lives on
         raise HTTPException(status.HTTP_403_FORBIDDEN, detail="This device has no station.")
     result = ingest_readings(
