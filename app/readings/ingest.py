@@ -643,15 +643,19 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
         f"INSERT INTO {table.name} ({', '.join(names)}) "
         f"VALUES ({', '.join('?' for _ in names)}) ON CONFLICT DO NOTHING"
     )
-    before = connection.exec_driver_sql(
-        f"SELECT coalesce(max(id), 0) FROM {table.name}"
-    ).scalar_one()
-    connection.exec_driver_sql(statement, list(zip(*columns, strict=True)))
-    if before >= 2**63 - 1 - len(rows):  # pragma: no cover - SQLite would pick random rowids
-        raise RuntimeError("the readings table has run out of rowids")
-    new = connection.exec_driver_sql(
-        f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,)
-    ).all()
+    # The driver's own cursor, in the session's transaction: SQLAlchemy's executemany
+    # checks every parameter row again on its way through.
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+        cursor.execute(f"SELECT coalesce(max(id), 0) FROM {table.name}")
+        (before,) = cursor.fetchone()
+        cursor.executemany(statement, zip(*columns, strict=True))
+        if before >= 2**63 - 1 - len(rows):  # pragma: no cover - SQLite would pick random rowids
+            raise RuntimeError("the readings table has run out of rowids")
+        cursor.execute(f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,))
+        new = cursor.fetchall()
+    finally:
+        cursor.close()
     return {by_text[observed_at]: row_id for row_id, observed_at in new}
 
 
