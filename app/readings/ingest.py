@@ -48,7 +48,7 @@ from app.readings.qc import (
     limits_with_overrides,
     run_qc,
 )
-from app.readings.schemas import ReadingIn, RejectedItem, validate_reading
+from app.readings.schemas import ReadingIn, RejectedItem, validate_readings
 from app.sites.models import Site, Station
 
 logger = logging.getLogger(__name__)
@@ -722,8 +722,7 @@ def ingest_readings(
 
     result = IngestResult()
     candidates: list[_Candidate] = []
-    for position, item in enumerate(items):
-        validated = validate_reading(item, now=now)
+    for position, validated in enumerate(validate_readings(items, now=now)):
         if isinstance(validated, ReadingIn):
             candidates.append(_Candidate(index=index_offset + position, reading=validated))
         else:

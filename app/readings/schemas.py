@@ -16,6 +16,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    TypeAdapter,
     ValidationError,
     ValidationInfo,
     field_validator,
@@ -189,6 +190,22 @@ def validate_reading(item: Any, *, now: dt.datetime) -> ReadingIn | list[str]:
         return ReadingIn.model_validate(item, context={"now": now})
     except ValidationError as error:
         return [_sentence(e) for e in error.errors()]
+
+
+_READING_LIST = TypeAdapter(list[ReadingIn])
+
+
+def validate_readings(items: Sequence[Any], *, now: dt.datetime) -> list[ReadingIn | list[str]]:
+    """``validate_reading`` of every item, in order.
+
+    The usual request is all good: one validation of the whole list costs about half of
+    a validation per item. Only a list with a problem is gone through item by item, for
+    each item's own sentences.
+    """
+    try:
+        return list(_READING_LIST.validate_python(items, context={"now": now}))
+    except ValidationError:
+        return [validate_reading(item, now=now) for item in items]
 
 
 def readings_from_body(payload: Any) -> list[Any]:
