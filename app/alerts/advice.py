@@ -181,21 +181,22 @@ def predict_tank_water(
     )
 
 
-def latest_good_reading(*, session: Session, station_pk: int) -> Reading | None:
-    """The newest reading at a station that did not fail QC and could be derived."""
-    return session.scalars(
-        select(Reading)
-        .where(
-            Reading.station_pk == station_pk,
-            Reading.qc_overall != QC_FAIL,
-            Reading.ph_total.is_not(None),
-            Reading.alkalinity_used_umol_kg.is_not(None),
-            Reading.temperature_c.is_not(None),
-            Reading.salinity.is_not(None),
-        )
-        .order_by(Reading.observed_at.desc())
-        .limit(1)
-    ).first()
+def latest_good_reading(
+    *, session: Session, station_pk: int, before: dt.datetime | None = None
+) -> Reading | None:
+    """The newest reading at a station (before ``before`` when given) that did not fail QC
+    and could be derived: the advice's input."""
+    query = select(Reading).where(
+        Reading.station_pk == station_pk,
+        Reading.qc_overall != QC_FAIL,
+        Reading.ph_total.is_not(None),
+        Reading.alkalinity_used_umol_kg.is_not(None),
+        Reading.temperature_c.is_not(None),
+        Reading.salinity.is_not(None),
+    )
+    if before is not None:
+        query = query.where(Reading.observed_at < before)
+    return session.scalars(query.order_by(Reading.observed_at.desc()).limit(1)).first()
 
 
 def stale_after_minutes(*, session: Session, tank: Tank) -> float:
@@ -501,6 +502,14 @@ def tank_advice(
         "chemistry_version": chemistry.CHEMISTRY_VERSION,
         "caution": chemistry.DOSING_CAUTION,
     }
+
+
+#: How each ``in_tank_basis`` is worded in mail and the daily summary.
+IN_TANK_BASIS_WORDS = {
+    "after_current_treatment": "after the current treatment",
+    "untreated_treatment_outside_limits": "untreated: the current treatment is outside safe limits",
+    "untreated_no_treatment": "no treatment",
+}
 
 
 STATION_ROLE_WORDS = {

@@ -15,7 +15,7 @@ from zoneinfo import ZoneInfo
 from sqlalchemy.orm import Session
 
 import chemistry
-from app.alerts.advice import source_description
+from app.alerts.advice import IN_TANK_BASIS_WORDS, source_description
 from app.alerts.models import Alert, AlertRule, OutboxMessage
 from app.sites.models import Site, Station, Tank
 
@@ -90,12 +90,7 @@ def _advice_lines(advice: dict[str, Any] | None, tank: Tank) -> list[str]:
     if advice is None:
         return [f"Tank {tank.name} ({tank.id}): no good reading at its source station yet."]
     water = advice["in_tank"]
-    basis = {
-        "after_current_treatment": "after the current treatment",
-        "untreated_treatment_outside_limits": "untreated (the current treatment is outside "
-        "safe limits)",
-        "untreated_no_treatment": "no treatment",
-    }.get(advice["in_tank_basis"], advice["in_tank_basis"])
+    basis = IN_TANK_BASIS_WORDS[advice["in_tank_basis"]]
     reading = advice["reading"]
     lines = [
         f"Tank {tank.name} ({tank.id}), fed from {advice['source']}, at "

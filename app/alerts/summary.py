@@ -107,12 +107,7 @@ def compose_summary(
             "basis": advice["in_tank_basis"],
             "untreated_omega_aragonite": advice["untreated"]["omega_aragonite"],
         }
-        treated_words = {
-            "after_current_treatment": "after the current treatment",
-            "untreated_treatment_outside_limits": "untreated: the current treatment is "
-            "outside safe limits",
-            "untreated_no_treatment": "no treatment",
-        }[advice["in_tank_basis"]]
+        treated_words = advice_module.IN_TANK_BASIS_WORDS[advice["in_tank_basis"]]
         untreated_text = (
             f"; untreated water {advice['untreated']['omega_aragonite']:.2f}"
             if advice["treatment"] is not None
