@@ -62,7 +62,3 @@ class Settings(BaseSettings):
         if len(self.secret_key.get_secret_value()) < 16:
             raise ValueError("SPATLINE_SECRET_KEY must be at least 16 characters long.")
         return self
-
-    @property
-    def is_sqlite(self) -> bool:
-        return self.database_url.startswith("sqlite")

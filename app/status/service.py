@@ -20,6 +20,7 @@ from sqlalchemy.orm import Session
 import chemistry
 from app.alerts.advice import (
     alkalinity_uncertainty,
+    latest_good_reading,
     predict_tank_water,
     source_description,
     tank_advice,
@@ -87,20 +88,6 @@ def station_readings(
     )
 
 
-def station_times(
-    *, session: Session, station_pk: int, start: datetime, end: datetime
-) -> list[datetime]:
-    return list(
-        session.scalars(
-            select(Reading.observed_at).where(
-                Reading.station_pk == station_pk,
-                Reading.observed_at >= start,
-                Reading.observed_at < end,
-            )
-        )
-    )
-
-
 #: Columns that hold small integers (QC flags) rather than floats.
 _FLAG_COLUMNS = frozenset(
     ("qc_temperature", "qc_salinity", "qc_ph", "qc_alkalinity", "qc_derived", "qc_overall")
@@ -159,26 +146,6 @@ def latest_reading(*, session: Session, station_pk: int, before: datetime) -> Re
         select(Reading)
         .where(Reading.station_pk == station_pk, Reading.observed_at < before)
         .order_by(Reading.observed_at.desc(), Reading.id.desc())
-        .limit(1)
-    ).first()
-
-
-def latest_good_reading_before(
-    *, session: Session, station_pk: int, before: datetime
-) -> Reading | None:
-    """The newest derivable, not failed reading before ``before`` (the advice's input)."""
-    return session.scalars(
-        select(Reading)
-        .where(
-            Reading.station_pk == station_pk,
-            Reading.observed_at < before,
-            Reading.qc_overall != QC_FAIL,
-            Reading.ph_total.is_not(None),
-            Reading.alkalinity_used_umol_kg.is_not(None),
-            Reading.temperature_c.is_not(None),
-            Reading.salinity.is_not(None),
-        )
-        .order_by(Reading.observed_at.desc())
         .limit(1)
     ).first()
 
@@ -423,9 +390,7 @@ def tank_status(
     covered = compute.covered_minutes(series.times, series.larvae_omega, **span)
     minutes_untreated = compute.minutes_below(series.times, series.omega, floor, **span)
 
-    reading = latest_good_reading_before(
-        session=session, station_pk=station.pk, before=window.as_of
-    )
+    reading = latest_good_reading(session=session, station_pk=station.pk, before=window.as_of)
     advice = None
     if reading is not None:
         advice = tank_advice(
