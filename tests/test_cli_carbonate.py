@@ -69,7 +69,8 @@ def test_json_matches_the_library(capsys):
     assert payload["after_dose"]["state"]["omega_aragonite"] == pytest.approx(
         float(dosed.omega_aragonite)
     )
-    # 10 mg/L / 105.988 mg/mmol Na2CO3, 2 equivalents per mole, per kg at the tank density.
+    # 10 mg/L / 105.988 mg/mmol Na2CO3 (IUPAC2007 atomic weights), 2 equivalents per mole
+    # (carbonate takes up two protons), per kg at the tank density.
     expected = 10.0 / 105.988 * 2.0 * 1e6 / float(seawater_density(25.0, 31.0))
     assert payload["after_dose"]["alkalinity_added"] == pytest.approx(expected, rel=1e-4)
     assert payload["target"]["state"]["omega_aragonite"] == pytest.approx(2.5, abs=1e-3)
