@@ -836,7 +836,11 @@ def _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, n
             dic = co2_from_pco2 * den / (h * h)
     else:
         # DIC and pCO2: alpha0 = CO2/DIC gives a quadratic in h.
-        alpha0 = co2_from_pco2 / dic if scalar else _safe_ratio(co2_from_pco2, dic)
+        # A DIC of zero (or one that underflows to zero in mol/kg) holds no CO2 at all.
+        if scalar:
+            alpha0 = co2_from_pco2 / dic if dic > 0.0 else math.inf
+        else:
+            alpha0 = _safe_ratio(co2_from_pco2, dic)
         bad = alpha0 >= 1.0
         if np.any(bad):
             _inconsistent(

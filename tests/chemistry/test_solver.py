@@ -165,6 +165,11 @@ def test_inputs_no_water_can_have_raise_instead_of_nan():
     assert caught.value.index == (1,)
     with pytest.raises(ChemistryInputError, match="negative DIC"):
         solve(temperature=25.0, salinity=35.0, ph=9.0, alkalinity=50.0)
+    # A single water with no DIC (or one too small to survive the unit change: schemathesis
+    # posted 5e-324 umol/kg) is refused like the array case, not divided by zero.
+    for dic in (0.0, 5e-324):
+        with pytest.raises(ChemistryInputError, match="more dissolved CO2"):
+            solve(temperature=0.0, salinity=0.0, dic=dic, pco2=1.0)
 
 
 def test_extreme_but_valid_implicit_inputs_converge_to_finite_values():
