@@ -5,23 +5,14 @@ from __future__ import annotations
 from typing import Annotated, Literal
 
 from fastapi import APIRouter, HTTPException, Query, Response, status
-from sqlalchemy.orm import Session
 
 from app.auth.dependencies import AdminDep, ReaderDep
 from app.batches import service
 from app.batches.schemas import BatchCreate, BatchExposure, BatchPublic
 from app.db import SessionDep, utcnow
-from app.sites import service as sites_service
-from app.sites.models import Site
+from app.sites.router import site_or_404
 
 router = APIRouter(prefix="/sites/{site_id}/batches", tags=["larval batches"])
-
-
-def _site_or_404(session: Session, site_id: str) -> Site:
-    site = sites_service.get_site(session=session, site_id=site_id)
-    if site is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"There is no site with id {site_id!r}.")
-    return site
 
 
 @router.post("", status_code=status.HTTP_201_CREATED, response_model=BatchPublic,
@@ -29,7 +20,7 @@ def _site_or_404(session: Session, site_id: str) -> Site:
 def create_batch(
     site_id: str, body: BatchCreate, session: SessionDep, _principal: AdminDep
 ) -> BatchPublic:
-    site = _site_or_404(session, site_id)
+    site = site_or_404(session, site_id)
     try:
         batch = service.create_batch(session=session, site=site, data=body)
     except service.UnknownTankError as error:
@@ -42,7 +33,7 @@ def create_batch(
 
 @router.get("", response_model=list[BatchPublic], summary="A site's larval batches")
 def list_batches(site_id: str, session: SessionDep, _principal: ReaderDep) -> list[BatchPublic]:
-    _site_or_404(session, site_id)
+    site_or_404(session, site_id)
     return [service.batch_public(b) for b in service.list_batches(session=session, site_id=site_id)]
 
 
@@ -63,7 +54,7 @@ def get_exposure(
     _principal: ReaderDep,
     output: Annotated[Literal["json", "csv"], Query(alias="format")] = "json",
 ) -> BatchExposure | Response:
-    site = _site_or_404(session, site_id)
+    site = site_or_404(session, site_id)
     batch = service.get_batch(session=session, site_id=site_id, batch_id=batch_id)
     if batch is None:
         raise HTTPException(

@@ -20,21 +20,14 @@ from app.samples.schemas import (
 )
 from app.sites import service as sites_service
 from app.sites.models import Site, Station
+from app.sites.router import site_or_404, station_or_404
 from app.sites.schemas import AlkalinitySalinityLine, StationUpdate
 
 router = APIRouter(prefix="/sites/{site_id}/stations/{station_id}", tags=["lab samples"])
 
 
 def _site_and_station(session: Session, site_id: str, station_id: str) -> tuple[Site, Station]:
-    site = sites_service.get_site(session=session, site_id=site_id)
-    if site is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"There is no site with id {site_id!r}.")
-    station = sites_service.get_station(session=session, site_id=site_id, station_id=station_id)
-    if station is None:
-        raise HTTPException(
-            status.HTTP_404_NOT_FOUND, f"Site {site_id!r} has no station with id {station_id!r}."
-        )
-    return site, station
+    return site_or_404(session, site_id), station_or_404(session, site_id, station_id)
 
 
 @router.post(

@@ -37,23 +37,27 @@ def _not_found(detail: str) -> HTTPException:
     return HTTPException(status_code=status.HTTP_404_NOT_FOUND, detail=detail)
 
 
-def _site_or_404(session: Session, site_id: str) -> Site:
+# The lookups below are shared by the routers of everything under a site (samples,
+# batches), so a missing site or station reads the same everywhere.
+
+
+def site_or_404(session: Session, site_id: str) -> Site:
     site = service.get_site(session=session, site_id=site_id)
     if site is None:
         raise _not_found(f"There is no site with id {site_id!r}.")
     return site
 
 
-def _station_or_404(session: Session, site_id: str, station_id: str) -> Station:
-    _site_or_404(session, site_id)
+def station_or_404(session: Session, site_id: str, station_id: str) -> Station:
+    site_or_404(session, site_id)
     station = service.get_station(session=session, site_id=site_id, station_id=station_id)
     if station is None:
         raise _not_found(f"Site {site_id!r} has no station with id {station_id!r}.")
     return station
 
 
-def _tank_or_404(session: Session, site_id: str, tank_id: str) -> Tank:
-    _site_or_404(session, site_id)
+def tank_or_404(session: Session, site_id: str, tank_id: str) -> Tank:
+    site_or_404(session, site_id)
     tank = service.get_tank(session=session, site_id=site_id, tank_id=tank_id)
     if tank is None:
         raise _not_found(f"Site {site_id!r} has no tank with id {tank_id!r}.")
@@ -111,12 +115,12 @@ def list_sites(session: SessionDep, _: ReaderDep) -> list[Site]:
 
 @router.get("/{site_id}", response_model=SitePublic)
 def read_site(site_id: str, session: SessionDep, _: ReaderDep) -> Site:
-    return _site_or_404(session, site_id)
+    return site_or_404(session, site_id)
 
 
 @router.patch("/{site_id}", response_model=SitePublic)
 def update_site(site_id: str, body: SiteUpdate, session: SessionDep, _: AdminDep) -> Site:
-    site = _site_or_404(session, site_id)
+    site = site_or_404(session, site_id)
     service.update_site(session=session, site=site, data=body)
     session.commit()
     return site
@@ -131,7 +135,7 @@ def update_site(site_id: str, body: SiteUpdate, session: SessionDep, _: AdminDep
 def create_station(
     site_id: str, body: StationCreate, session: SessionDep, _: AdminDep
 ) -> StationPublic:
-    site = _site_or_404(session, site_id)
+    site = site_or_404(session, site_id)
     station = _save(
         session,
         lambda: service.create_station(session=session, site=site, data=body),
@@ -142,7 +146,7 @@ def create_station(
 
 @router.get("/{site_id}/stations", response_model=list[StationPublic])
 def list_stations(site_id: str, session: SessionDep, _: ReaderDep) -> list[StationPublic]:
-    _site_or_404(session, site_id)
+    site_or_404(session, site_id)
     return [
         service.station_public(station)
         for station in service.list_stations(session=session, site_id=site_id)
@@ -151,14 +155,14 @@ def list_stations(site_id: str, session: SessionDep, _: ReaderDep) -> list[Stati
 
 @router.get("/{site_id}/stations/{station_id}", response_model=StationPublic)
 def read_station(site_id: str, station_id: str, session: SessionDep, _: ReaderDep) -> StationPublic:
-    return service.station_public(_station_or_404(session, site_id, station_id))
+    return service.station_public(station_or_404(session, site_id, station_id))
 
 
 @router.patch("/{site_id}/stations/{station_id}", response_model=StationPublic)
 def update_station(
     site_id: str, station_id: str, body: StationUpdate, session: SessionDep, _: AdminDep
 ) -> StationPublic:
-    station = _station_or_404(session, site_id, station_id)
+    station = station_or_404(session, site_id, station_id)
     _save(session, lambda: service.update_station(session=session, station=station, data=body))
     return service.station_public(station)
 
@@ -168,7 +172,7 @@ def update_station(
 
 @router.post("/{site_id}/tanks", status_code=status.HTTP_201_CREATED, response_model=TankPublic)
 def create_tank(site_id: str, body: TankCreate, session: SessionDep, _: AdminDep) -> TankPublic:
-    site = _site_or_404(session, site_id)
+    site = site_or_404(session, site_id)
     tank = _save(
         session,
         lambda: service.create_tank(session=session, site=site, data=body),
@@ -179,7 +183,7 @@ def create_tank(site_id: str, body: TankCreate, session: SessionDep, _: AdminDep
 
 @router.get("/{site_id}/tanks", response_model=list[TankPublic])
 def list_tanks(site_id: str, session: SessionDep, _: ReaderDep) -> list[TankPublic]:
-    _site_or_404(session, site_id)
+    site_or_404(session, site_id)
     return [
         service.tank_public(tank) for tank in service.list_tanks(session=session, site_id=site_id)
     ]
@@ -187,14 +191,14 @@ def list_tanks(site_id: str, session: SessionDep, _: ReaderDep) -> list[TankPubl
 
 @router.get("/{site_id}/tanks/{tank_id}", response_model=TankPublic)
 def read_tank(site_id: str, tank_id: str, session: SessionDep, _: ReaderDep) -> TankPublic:
-    return service.tank_public(_tank_or_404(session, site_id, tank_id))
+    return service.tank_public(tank_or_404(session, site_id, tank_id))
 
 
 @router.patch("/{site_id}/tanks/{tank_id}", response_model=TankPublic)
 def update_tank(
     site_id: str, tank_id: str, body: TankUpdate, session: SessionDep, _: AdminDep
 ) -> TankPublic:
-    tank = _tank_or_404(session, site_id, tank_id)
+    tank = tank_or_404(session, site_id, tank_id)
     _save(session, lambda: service.update_tank(session=session, tank=tank, data=body))
     return service.tank_public(tank)
 
@@ -215,7 +219,7 @@ def create_device(
     _: AdminDep,
     body: DeviceCreate | None = None,
 ) -> DeviceCreated:
-    station = _station_or_404(session, site_id, station_id)
+    station = station_or_404(session, site_id, station_id)
     device, plaintext = service.create_device(
         session=session, station=station, label=body.label if body else ""
     )
@@ -231,7 +235,7 @@ def create_device(
 def revoke_device(
     site_id: str, station_id: str, device_id: str, session: SessionDep, _: AdminDep
 ) -> Response:
-    station = _station_or_404(session, site_id, station_id)
+    station = station_or_404(session, site_id, station_id)
     device: Device | None = service.get_device(
         session=session, station=station, device_id=device_id
     )
