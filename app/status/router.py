@@ -10,7 +10,7 @@ from fastapi.responses import JSONResponse
 
 from app.auth.dependencies import ReaderDep
 from app.db import SessionDep, utcnow
-from app.sites.models import Site
+from app.sites.router import site_or_404
 from app.status.days import StatusDayError, check_status_day
 from app.status.service import site_status
 from app.timefmt import json_body
@@ -41,9 +41,7 @@ def get_site_status(
         Query(alias="date", description="Site-local day, YYYY-MM-DD (default: today)."),
     ] = None,
 ) -> JSONResponse:
-    site = session.get(Site, site_id)
-    if site is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"No site with id {site_id!r}.")
+    site = site_or_404(session, site_id)
     now = utcnow()
     try:
         check_status_day(day, timezone=site.timezone, now=now)
