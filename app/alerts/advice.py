@@ -11,7 +11,7 @@ kept; heating raises pCO2 and lowers pH), then:
   after the current treatment. When the treated water would be outside the limits dose
   advice keeps to (omega aragonite above :data:`chemistry.dosing.MAX_RESULT_OMEGA_ARAGONITE`
   or pH total above :data:`chemistry.dosing.MAX_RESULT_PH_TOTAL`), the treatment is taken
-  to be a mistake (e.g. 500 typed for 5.00): the advice says so and ``in_tank`` and the
+  to be a mistake (a typing or unit slip): the advice says so and ``in_tank`` and the
   tank alerts fall back to the untreated water, the safe side, so an absurd treatment can
   never silence a low-omega alert;
 * the dose of a chosen chemical that reaches the tank's target omega at culture
