@@ -27,7 +27,7 @@ import pytest
 from anyio.from_thread import BlockingPortal, start_blocking_portal
 from fastapi import FastAPI
 from sqlalchemy import Engine
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, sessionmaker
 
 from app import migrate
 from app.auth.keys import create_key
@@ -37,6 +37,7 @@ from app.settings import Settings
 from app.sites import service as sites_service
 from app.sites.models import Device, Site, Station, Tank
 from app.sites.schemas import SiteCreate, StationCreate, TankCreate
+from tests.mailserver import MailServer
 
 TEST_DATABASE_ENV = "SPATLINE_TEST_DATABASE_URL"
 BASE_URL = "http://testserver"
@@ -251,3 +252,39 @@ def make_device(
         return device, plaintext
 
     return factory
+
+
+# --- mail --------------------------------------------------------------------------------
+
+
+@pytest.fixture
+def mail_server() -> Iterator[MailServer]:
+    server = MailServer()
+    server.start()
+    yield server
+    server.stop()
+
+
+@pytest.fixture
+def mail_settings(settings: Settings, mail_server: MailServer) -> Settings:
+    return settings.model_copy(
+        update={
+            "smtp_host": "127.0.0.1",
+            "smtp_port": mail_server.port,
+            "smtp_security": "none",
+            "smtp_from": "alerts@hatchery.example",
+            "public_url": "https://spatline.hatchery.example",
+        }
+    )
+
+
+@pytest.fixture
+def factory(session: Session) -> sessionmaker[Session]:
+    """Sessions for code that opens its own short transactions (the sender, the sweep),
+    as savepoints of the test's rolled-back transaction."""
+    return sessionmaker(
+        bind=session.connection(),
+        join_transaction_mode="create_savepoint",
+        expire_on_commit=False,
+        autoflush=False,
+    )

@@ -16,16 +16,13 @@ from sqlalchemy import select
 
 from app.alerts.models import AlertRule, OutboxMessage
 from app.alerts.sender import MAX_RETRY_SECONDS, retry_delay
+from tests.mailserver import MailServer
 from tests.service.test_alert_mail import (
     PH_BAD,
     RECIPIENT,
     T0,
-    MailServer,
     _ingest,
     _send,
-    factory,  # noqa: F401  (fixture)
-    mail_server,  # noqa: F401  (fixture)
-    mail_settings,  # noqa: F401  (fixture)
 )
 
 pytestmark = pytest.mark.db
@@ -52,8 +49,8 @@ def alerting_sites(session, make_site, make_station, make_tank):
 
 def test_every_pending_mail_is_delivered_once_after_a_long_outage(
     session,
-    factory,  # noqa: F811
-    mail_settings,  # noqa: F811
+    factory,
+    mail_settings,
     alerting_sites,
 ):
     down = MailServer()  # a port nobody listens on, until started

@@ -18,37 +18,17 @@ import datetime as dt
 
 import pytest
 from sqlalchemy import select
-from sqlalchemy.orm import Session, sessionmaker
 
 import chemistry
 from app.alerts.evaluation import sweep
 from app.alerts.models import Alert, AlertRule
 from app.alerts.sender import send_due
-from tests.service.test_alert_mail import PH_BAD, PH_BAND, PH_GOOD, MailServer, _check_levels
+from tests.service.test_alert_mail import PH_BAD, PH_BAND, PH_GOOD, _check_levels
 
 pytestmark = pytest.mark.db
 
 RECIPIENT = "tank-room@hatchery.example"
 STEP = dt.timedelta(minutes=3)
-
-
-@pytest.fixture
-def mail_server():
-    server = MailServer()
-    server.start()
-    yield server
-    server.stop()
-
-
-@pytest.fixture
-def factory(session: Session) -> sessionmaker[Session]:
-    # The sender's own short transactions, as savepoints of the test's rolled-back one.
-    return sessionmaker(
-        bind=session.connection(),
-        join_transaction_mode="create_savepoint",
-        expire_on_commit=False,
-        autoflush=False,
-    )
 
 
 @pytest.fixture

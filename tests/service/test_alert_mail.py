@@ -9,20 +9,16 @@ test's rollback removes everything.
 from __future__ import annotations
 
 import datetime as dt
-import email
-import socket
-from email import policy
 
 import pytest
-from aiosmtpd.controller import Controller
 from sqlalchemy import select
-from sqlalchemy.orm import Session, sessionmaker
 
 import chemistry
 from app.alerts.evaluation import evaluate_after_ingest, sweep
 from app.alerts.models import Alert, AlertRule, OutboxMessage
 from app.alerts.sender import retry_delay, send_due
 from app.readings.models import Reading
+from tests.mailserver import MailServer
 
 pytestmark = pytest.mark.db
 
@@ -33,73 +29,6 @@ RECIPIENT = "manager@hatchery.example"
 PH_BAD = 7.7  # about 1.09: below the 1.5 floor
 PH_BAND = 7.9  # about 1.62: between the floor and the 1.7 clear level
 PH_GOOD = 8.05  # about 2.2: above the clear level
-
-
-class _Collector:
-    def __init__(self) -> None:
-        self.messages: list[email.message.EmailMessage] = []
-
-    async def handle_DATA(self, server, session, envelope):
-        raw = envelope.original_content or envelope.content
-        self.messages.append(email.message_from_bytes(raw, policy=policy.default))
-        return "250 Message accepted for delivery"
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
-class MailServer:
-    def __init__(self) -> None:
-        self.port = _free_port()
-        self.collector = _Collector()
-        self.controller: Controller | None = None
-
-    def start(self) -> None:
-        self.controller = Controller(self.collector, hostname="127.0.0.1", port=self.port)
-        self.controller.start()
-
-    def stop(self) -> None:
-        if self.controller is not None:
-            self.controller.stop()
-            self.controller = None
-
-    @property
-    def messages(self) -> list[email.message.EmailMessage]:
-        return self.collector.messages
-
-
-@pytest.fixture
-def mail_server():
-    server = MailServer()
-    server.start()
-    yield server
-    server.stop()
-
-
-@pytest.fixture
-def mail_settings(settings, mail_server):
-    return settings.model_copy(
-        update={
-            "smtp_host": "127.0.0.1",
-            "smtp_port": mail_server.port,
-            "smtp_security": "none",
-            "smtp_from": "alerts@hatchery.example",
-            "public_url": "https://spatline.hatchery.example",
-        }
-    )
-
-
-@pytest.fixture
-def factory(session: Session) -> sessionmaker[Session]:
-    return sessionmaker(
-        bind=session.connection(),
-        join_transaction_mode="create_savepoint",
-        expire_on_commit=False,
-        autoflush=False,
-    )
 
 
 @pytest.fixture

@@ -26,7 +26,7 @@ from app.alerts.models import Alert, AlertRule, DailySummaryRecord, OutboxMessag
 from app.sites import service as sites_service
 from app.sites.models import Site
 from app.sites.schemas import SiteCreate, StationCreate
-from tests.service.test_alert_mail import MailServer
+from tests.mailserver import MailServer
 
 pytestmark = [
     pytest.mark.postgres,

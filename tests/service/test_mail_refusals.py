@@ -11,19 +11,18 @@ import datetime as dt
 
 import pytest
 from sqlalchemy import select
-from sqlalchemy.orm import Session, sessionmaker
 
 from app.alerts.mail import write_outbox
 from app.alerts.models import OutboxMessage
 from app.alerts.sender import MAX_REFUSED_ATTEMPTS, refused_retry_delay, send_due
-from tests.service.test_alert_mail import MailServer, _Collector
+from tests.mailserver import MailCollector, MailServer
 
 pytestmark = pytest.mark.db
 
 T0 = dt.datetime(2026, 6, 1, 12, 0, tzinfo=dt.UTC)
 
 
-class _Refusing(_Collector):
+class _Refusing(MailCollector):
     refuse = True
 
     async def handle_DATA(self, server, session, envelope):
@@ -39,16 +38,6 @@ def refusing_server():
     server.start()
     yield server
     server.stop()
-
-
-@pytest.fixture
-def factory(session: Session) -> sessionmaker[Session]:
-    return sessionmaker(
-        bind=session.connection(),
-        join_transaction_mode="create_savepoint",
-        expire_on_commit=False,
-        autoflush=False,
-    )
 
 
 @pytest.fixture

@@ -28,7 +28,7 @@ from app.db import make_engine
 from app.settings import Settings
 from app.sites import service as sites_service
 from app.sites.schemas import SiteCreate, StationCreate
-from tests.service.test_alert_mail import MailServer
+from tests.mailserver import MailServer
 
 pytestmark = pytest.mark.db
 
