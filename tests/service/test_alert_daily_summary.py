@@ -23,6 +23,7 @@ import chemistry
 from app.alerts.models import AlertRule, DailySummaryRecord, OutboxMessage
 from app.alerts.summary import write_daily_summaries
 from app.readings.models import Reading
+from tests.stored import stored_reading
 
 pytestmark = pytest.mark.db
 
@@ -35,30 +36,14 @@ def utc(text: str) -> dt.datetime:
 
 def _store(session, station, at: dt.datetime, ph: float, *, failed: bool = False) -> Reading:
     temperature = 10.0 + ph  # a distinct temperature per reading, for the figures
-    state = chemistry.solve(temperature=temperature, salinity=32.0, ph=ph, alkalinity=2200.0)
-    reading = Reading(
-        station_pk=station.pk,
-        source="dev_summary",
-        observed_at=at,
-        received_at=at,
-        temperature_c=temperature,
-        salinity=32.0,
+    reading = stored_reading(
+        station,
+        at,
         ph=ph,
-        ph_scale="total",
-        alkalinity_used_umol_kg=2200.0,
-        alkalinity_source="fixed",
-        ph_total=ph,
-        dic_umol_kg=float(state.dic),
-        pco2_uatm=float(state.pco2),
-        carbonate_umol_kg=float(state.carbonate),
-        omega_aragonite=float(state.omega_aragonite),
-        omega_calcite=float(state.omega_calcite),
+        temperature=temperature,
+        source="dev_summary",
         omega_aragonite_uncertainty=0.1,
-        qc_temperature=1,
-        qc_salinity=1,
         qc_ph=4 if failed else 1,
-        qc_alkalinity=2,
-        qc_derived=1,
         qc_overall=4 if failed else 1,
     )
     session.add(reading)

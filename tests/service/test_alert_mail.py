@@ -19,6 +19,7 @@ from app.alerts.models import Alert, AlertRule, OutboxMessage
 from app.alerts.sender import retry_delay, send_due
 from app.readings.models import Reading
 from tests.mailserver import MailServer
+from tests.stored import stored_reading
 
 pytestmark = pytest.mark.db
 
@@ -60,32 +61,7 @@ def _ingest(session, station, points, *, start=T0, step_minutes=5) -> list[Readi
     readings = []
     for i, ph in enumerate(points):
         at = start + dt.timedelta(minutes=step_minutes * i)
-        state = chemistry.solve(temperature=12.0, salinity=32.0, ph=ph, alkalinity=2200.0)
-        reading = Reading(
-            station_pk=station.pk,
-            source="dev_test",
-            observed_at=at,
-            received_at=at,
-            temperature_c=12.0,
-            salinity=32.0,
-            ph=ph,
-            ph_scale="total",
-            alkalinity_used_umol_kg=2200.0,
-            alkalinity_source="fixed",
-            ph_total=ph,
-            dic_umol_kg=float(state.dic),
-            pco2_uatm=float(state.pco2),
-            carbonate_umol_kg=float(state.carbonate),
-            omega_aragonite=float(state.omega_aragonite),
-            omega_calcite=float(state.omega_calcite),
-            omega_aragonite_uncertainty=0.1,
-            qc_temperature=1,
-            qc_salinity=1,
-            qc_ph=1,
-            qc_alkalinity=2,
-            qc_derived=1,
-            qc_overall=1,
-        )
+        reading = stored_reading(station, at, ph=ph, omega_aragonite_uncertainty=0.1)
         session.add(reading)
         session.flush()
         # One ingest per reading, as a sensor posting every 5 minutes would.

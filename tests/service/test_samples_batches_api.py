@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import chemistry
-from app.readings.models import Reading
+from tests.stored import stored_reading
 
 pytestmark = pytest.mark.db
 
@@ -24,16 +24,10 @@ T0 = dt.datetime(2026, 5, 4, 12, 0, tzinfo=dt.UTC)
 
 def _add_reading(session, station, at, *, ph_total, temperature=12.0, salinity=31.0,
                  alkalinity=2100.0):
-    state = chemistry.solve(temperature=temperature, salinity=salinity, ph=ph_total,
-                            alkalinity=alkalinity)
-    session.add(Reading(
-        station_pk=station.pk, source="dev_x", observed_at=at, received_at=at,
-        temperature_c=temperature, salinity=salinity, ph=ph_total, ph_scale="total",
-        alkalinity_used_umol_kg=alkalinity, alkalinity_source="reading", ph_total=ph_total,
-        dic_umol_kg=float(state.dic), pco2_uatm=float(state.pco2),
-        carbonate_umol_kg=float(state.carbonate), omega_aragonite=float(state.omega_aragonite),
-        omega_calcite=float(state.omega_calcite), qc_temperature=1, qc_salinity=1, qc_ph=1,
-        qc_alkalinity=1, qc_derived=1, qc_overall=1, chemistry_version="test",
+    session.add(stored_reading(
+        station, at, ph=ph_total, temperature=temperature, salinity=salinity,
+        alkalinity=alkalinity, source="dev_x", alkalinity_source="reading", qc_alkalinity=1,
+        chemistry_version="test",
     ))
 
 

@@ -21,6 +21,7 @@ from app.alerts.evaluation import evaluate_after_ingest
 from app.alerts.models import Alert, AlertRule
 from app.readings.models import Reading
 from app.sites.models import Tank
+from tests.stored import stored_reading
 
 pytestmark = pytest.mark.db
 
@@ -29,24 +30,8 @@ PH_LOW = 7.7  # untreated tank omega at 24 degC below the 1.5 floor (checked bel
 
 
 def _reading(station, at: dt.datetime, ph: float) -> Reading:
-    return Reading(
-        station_pk=station.pk,
-        source="dev_test",
-        observed_at=at,
-        received_at=at,
-        temperature_c=T_IN,
-        salinity=S,
-        ph=ph,
-        ph_scale="total",
-        ph_total=ph,
-        alkalinity_used_umol_kg=TA,
-        alkalinity_source="fixed",
-        qc_temperature=1,
-        qc_salinity=1,
-        qc_ph=1,
-        qc_alkalinity=2,
-        qc_derived=1,
-        qc_overall=1,
+    return stored_reading(
+        station, at, ph=ph, temperature=T_IN, salinity=S, alkalinity=TA, derive=False
     )
 
 
