@@ -9,13 +9,19 @@ ENV PYTHONDONTWRITEBYTECODE=1 \
 # A plain (non-editable) install: the wheel carries the migrations, templates, static files
 # and chemistry data, so the source is built in a scratch directory and thrown away.
 WORKDIR /tmp/spatline-src
-COPY pyproject.toml README.md ./
+COPY pyproject.toml setup.py README.md ./
 COPY app ./app
 COPY chemistry ./chemistry
 COPY demo ./demo
 COPY migrations ./migrations
-RUN pip install . \
+# gcc builds the compiled chemistry kernel (chemistry/_kernel.c) and is removed again after.
+RUN apt-get update \
+    && apt-get install -y --no-install-recommends gcc libc6-dev \
+    && pip install . \
+    && apt-get purge -y --auto-remove gcc libc6-dev \
+    && rm -rf /var/lib/apt/lists/* \
     && cd / \
+    && python -c "from chemistry import kernel; assert kernel.available(), 'no kernel built'" \
     && rm -rf /tmp/spatline-src \
     && useradd --create-home --uid 10001 spatline \
     && mkdir -p /srv/spatline/var \

@@ -821,8 +821,7 @@ _VALIDITY = {
 }
 
 
-def _range_sentence(name, unit, low, high, lo_allowed, hi_allowed, label, key, count, total):
-    shown = f"{low:g}" if low == high else f"{low:g} to {high:g}"
+def _range_sentence(name, unit, shown, lo_allowed, hi_allowed, label, key, count, total):
     where = "" if total <= 1 else f" ({count} of {total} values)"
     unit_text = f" {unit}" if unit else ""
     return (
@@ -832,7 +831,7 @@ def _range_sentence(name, unit, low, high, lo_allowed, hi_allowed, label, key, c
     )
 
 
-def validity_warnings(temperature, salinity, carbonic="lueker2000"):
+def validity_warnings(temperature, salinity, carbonic="lueker2000", extremes=None):
     """Sentences for every relation whose temperature or salinity range the inputs leave.
 
     Parameters
@@ -843,6 +842,8 @@ def validity_warnings(temperature, salinity, carbonic="lueker2000"):
         Practical salinity.
     carbonic : str
         The K1, K2 set in use, "lueker2000" or "millero2010".
+    extremes : tuple of float, optional
+        Lowest and highest temperature, then salinity, when the caller already has them.
 
     Returns
     -------
@@ -852,14 +853,11 @@ def validity_warnings(temperature, salinity, carbonic="lueker2000"):
     s = _num(salinity)
     if np.size(t) == 0 or np.size(s) == 0:
         return ()
-    if type(t) is float:
-        t_min = t_max = t
+    if extremes is not None:
+        t_min, t_max, s_min, s_max = extremes
     else:
-        t_min, t_max = float(t.min()), float(t.max())
-    if type(s) is float:
-        s_min = s_max = s
-    else:
-        s_min, s_max = float(s.min()), float(s.max())
+        t_min, t_max = (t, t) if type(t) is float else (float(t.min()), float(t.max()))
+        s_min, s_max = (s, s) if type(s) is float else (float(s.min()), float(s.max()))
     sentences = []
     for set_name in (carbonic, "kb", "ks", "ksp"):
         label, key, lo_t, hi_t, lo_s, hi_s = _VALIDITY[set_name]
@@ -870,21 +868,23 @@ def validity_warnings(temperature, salinity, carbonic="lueker2000"):
             if v_min >= lo and v_max <= hi:
                 continue
             if type(value) is float:
-                count, total, low, high = 1, 1, value, value
+                count, total, shown = 1, 1, f"{value:g}"
             else:
-                # Extremes of the values outside from the overall extremes: the lowest outside
-                # value is the overall minimum if any lies below, else the lowest above.
-                below = value < lo if v_min < lo else None
-                above = value > hi if v_max > hi else None
-                count = sum(int(np.count_nonzero(m)) for m in (below, above) if m is not None)
+                # Named by the overall extremes on the side(s) left: a count of a mask is cheap,
+                # the extreme of the values inside it is not (a pass with a where= of its own).
+                below = v_min < lo
+                above = v_max > hi
+                count = (int(np.count_nonzero(value < lo)) if below else 0) + (
+                    int(np.count_nonzero(value > hi)) if above else 0
+                )
                 total = int(value.size)
-                low = v_min if below is not None else float(np.min(value, where=above,
-                                                                    initial=np.inf))
-                high = v_max if above is not None else float(np.max(value, where=below,
-                                                                     initial=-np.inf))
-            sentences.append(
-                _range_sentence(name, unit, low, high, lo, hi, label, key, count, total)
-            )
+                if below and above:
+                    shown = f"from {v_min:g} to {v_max:g}"
+                elif below:
+                    shown = f"as low as {v_min:g}"
+                else:
+                    shown = f"as high as {v_max:g}"
+            sentences.append(_range_sentence(name, unit, shown, lo, hi, label, key, count, total))
     return tuple(sentences)
 
 

@@ -33,6 +33,7 @@ from typing import Any
 
 import numpy as np
 
+from . import kernel
 from .constants import (
     BORON_CHOICES,
     CARBONIC_CHOICES,
@@ -487,6 +488,24 @@ def _as_scalar(value):
     return None
 
 
+# Inputs no water can have: (sentence, parameter), shared by the numpy and compiled paths.
+_NEGATIVE_DIC = (
+    "alkalinity is too low for this pH: the water would need a negative DIC; "
+    "check the alkalinity, the pH and its scale",
+    "alkalinity",
+)
+_CO2_ABOVE_DIC = (
+    "pco2 implies more dissolved CO2 than the dic holds; no water has that pair",
+    "pco2",
+)
+_PH_UNDEFINED = ("pco2 and dic are both zero or pco2 is zero: the pH is undefined", "pco2")
+_KERNEL_ERRORS = {
+    kernel.NEGATIVE_DIC: _NEGATIVE_DIC,
+    kernel.CO2_ABOVE_DIC: _CO2_ABOVE_DIC,
+    kernel.PH_UNDEFINED: _PH_UNDEFINED,
+}
+
+
 def _inconsistent(message, parameter, mask=None, shape=None, offset=0):
     """Raise for inputs no water can have; ``mask`` is flat, ``offset`` its start in ``shape``."""
     index = None
@@ -683,7 +702,17 @@ def solve(
             constant_shifts,
         )
 
-    checked = _validate_array_inputs(temperature, salinity, pressure, given, phosphate, silicate)
+    def validate():
+        return _validate_array_inputs(temperature, salinity, pressure, given, phosphate, silicate)
+
+    # The compiled kernel checks the ranges as it solves; the checks here run only when it finds
+    # a value outside them, to name it. Without the kernel they run first.
+    checked = _plain_arrays(temperature, salinity, pressure, given, phosphate, silicate) \
+        if kernel.enabled() else None
+    revalidate = validate
+    if checked is None:
+        checked = validate()
+        revalidate = None
     shift_arrays = {}
     if constant_shifts is not None:
         for key, value in constant_shifts.items():
@@ -714,8 +743,40 @@ def solve(
     si = flat(checked["silicate"])
     given_flat = {name: flat(checked[name]) for name in given}
     shifts = {key: flat(value) for key, value in shift_arrays.items()} or None
+    flags = (
+        bool(checked["phosphate"].any() or checked["silicate"].any()),
+        not checked["pressure"].any(),
+    )
     return _solve_core(
-        t, s, p, given_flat, po4, si, ph_scale, carbonic, boron, shifts, shape, constant_shifts
+        t, s, p, given_flat, po4, si, ph_scale, carbonic, boron, shifts, shape, constant_shifts,
+        flags=flags, revalidate=revalidate,
+    )
+
+
+def _plain_arrays(temperature, salinity, pressure, given, phosphate, silicate):
+    """The inputs as float64 arrays, unchecked, for the kernel path; None if one is not numeric
+    or the pressure is not zero (the numpy path then runs, with the full checks)."""
+    try:
+        arrays = {
+            "temperature": np.asarray(temperature, dtype=np.float64),
+            "salinity": np.asarray(salinity, dtype=np.float64),
+            "pressure": np.asarray(pressure, dtype=np.float64),
+            "phosphate": np.asarray(phosphate, dtype=np.float64),
+            "silicate": np.asarray(silicate, dtype=np.float64),
+        }
+        arrays.update({name: np.asarray(value, dtype=np.float64) for name, value in given.items()})
+    except (TypeError, ValueError):
+        return None
+    return arrays if not arrays["pressure"].any() else None
+
+
+def _kernel_limits(given):
+    """Allowed (low, high) of temperature, salinity and the two given quantities."""
+    concentration = (0.0, float(np.finfo(np.float64).max))
+    return (
+        TEMPERATURE_RANGE_C,
+        SALINITY_RANGE,
+        *(PH_RANGE if name == "ph" else concentration for name in given),
     )
 
 
@@ -729,21 +790,28 @@ _CHUNK = 4096
 
 
 def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shape,
-                constant_shifts):
+                constant_shifts, flags=None, revalidate=None):
+    """Solve flat arrays (or floats when ``shape`` is None).
+
+    ``flags``: (nutrients, no_pressure) when the caller knows them; ``revalidate``: the full
+    input checks, when they have not run yet (the kernel path).
+    """
     scalar = shape is None
-    warnings = list(validity_warnings(t, s, carbonic))
-    if ph_scale == "nbs":
-        warnings.append(NBS_WARNING)
+    extremes = None
     if scalar:
         nutrients = po4 != 0.0 or si != 0.0
         no_pressure = p == 0.0
         values = _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts,
                                 nutrients, no_pressure, None, 0)
     else:
-        nutrients = bool(po4.any() or si.any())
-        no_pressure = not p.any()
+        nutrients, no_pressure = flags or (bool(po4.any() or si.any()), not p.any())
         size = t.size
-        if size <= _CHUNK:
+        if no_pressure and kernel.enabled() and size:
+            values, extremes = _solve_compiled(
+                t, s, given, po4, si, ph_scale, carbonic, boron, shifts, nutrients, shape,
+                revalidate,
+            )
+        elif size <= _CHUNK:
             values = _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts,
                                     nutrients, no_pressure, shape, 0)
         else:
@@ -764,6 +832,9 @@ def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shap
 
             for start in range(0, size, _CHUNK):
                 solve_slice(start)
+    warnings = list(validity_warnings(t, s, carbonic, extremes=extremes))
+    if ph_scale == "nbs":
+        warnings.append(NBS_WARNING)
     if scalar:
         outputs = [np.float64(v) for v in values]
         inputs = (np.float64(t), np.float64(s), np.float64(p))
@@ -782,6 +853,31 @@ def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shap
         boron=boron,
         constant_shifts=constant_shifts,
     )
+
+
+def _solve_compiled(t, s, given, po4, si, ph_scale, carbonic, boron, shifts, nutrients, shape,
+                    revalidate):
+    """The outputs of :func:`_solve_numeric` for flat arrays from the compiled kernel, and the
+    lowest and highest temperature and salinity."""
+    (first_name, first), (second_name, second) = given.items()
+    values, extremes, bad = kernel.solve_flat(
+        pair=(first_name, second_name), first=first, second=second, temperature=t, salinity=s,
+        phosphate=po4, silicate=si, ph_scale=ph_scale, carbonic=carbonic, boron=boron,
+        nutrients=nutrients, shifts=shifts, limits=_kernel_limits(given),
+    )
+    if extremes is not None:
+        return values, (float(extremes[0]), float(extremes[1]), float(extremes[2]),
+                        float(extremes[3]))
+    # A bad input takes precedence over an inconsistent pair, as on the numpy path.
+    if revalidate is not None:
+        revalidate()
+    if values == kernel.OUT_OF_RANGE:
+        raise ChemistryInputError(
+            "an input is NaN or outside its allowed range.", parameter="inputs"
+        )
+    mask = np.zeros(t.size, dtype=bool)
+    mask[bad] = True
+    _inconsistent(*_KERNEL_ERRORS[values], mask, shape)
 
 
 def _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, nutrients,
@@ -817,9 +913,7 @@ def _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, n
             bad = dic < -_DIC_ROUNDING
             if np.any(bad):
                 _inconsistent(
-                    "alkalinity is too low for this pH: the water would need a negative DIC; "
-                    "check the alkalinity, the pH and its scale",
-                    "alkalinity",
+                    *_NEGATIVE_DIC,
                     None if scalar else bad,
                     shape,
                     offset,
@@ -844,8 +938,7 @@ def _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, n
         bad = alpha0 >= 1.0
         if np.any(bad):
             _inconsistent(
-                "pco2 implies more dissolved CO2 than the dic holds; no water has that pair",
-                "pco2",
+                *_CO2_ABOVE_DIC,
                 None if scalar else bad,
                 shape,
                 offset,
@@ -858,8 +951,7 @@ def _solve_numeric(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, n
         bad = h <= 0.0
         if np.any(bad):
             _inconsistent(
-                "pco2 and dic are both zero or pco2 is zero: the pH is undefined",
-                "pco2",
+                *_PH_UNDEFINED,
                 None if scalar else bad,
                 shape,
                 offset,
