@@ -12,7 +12,7 @@
  * temperature deg C; K1, K2, KB, KW, KF, K1P, K2P, K3P, KSi on the total scale, KS free.
  * Zero gauge pressure only: the Python code handles pressure.
  *
- * On x86-64 with glibc, exp, log and log10 are declared with vector variants (glibc's libmvec),
+ * On x86-64 with glibc, exp and log are declared with their vector variants (glibc's libmvec),
  * and the function is compiled for AVX-512, AVX2 and the baseline, picked at load time, so
  * the per-block loops run several readings per instruction. No -ffast-math: rounding stays
  * IEEE, NaN and infinities keep their meaning, and the process's floating-point mode is left
@@ -38,38 +38,56 @@
 #if defined(__x86_64__) && defined(__GLIBC__) && defined(__GNUC__) && !defined(__clang__)
 __attribute__((simd("notinbranch"))) double exp(double);
 __attribute__((simd("notinbranch"))) double log(double);
-#define SPATLINE_CLONES __attribute__((target_clones("arch=x86-64-v4", "arch=x86-64-v3", "default")))
+#define SPATLINE_CLONES                                                                            \
+    __attribute__((target_clones("arch=x86-64-v4", "arch=x86-64-v3", "default")))
 #else
 #define SPATLINE_CLONES
 #endif
+
+/* Inlined into each compiled copy, where the pair and the nutrients are constants. */
+#define INLINE static inline __attribute__((always_inline))
 
 #define BLOCK 128
 #define MICRO 1e-6
 #define PER_MICRO 1e6
 #define LN10 2.302585092994046
-#define INV_LN10 0.4342944819032518 /* 1 / ln 10: a product, where a division costs several */
-#define ZERO_CELSIUS_K 273.15                  /* constants.ZERO_CELSIUS_K */
-#define GAS_CONSTANT_CM3_ATM 82.05736          /* constants.GAS_CONSTANT_CM3_ATM */
-#define RELATIVE_TOLERANCE 1e-10               /* solver._RELATIVE_TOLERANCE */
-#define MAX_ITERATIONS 200                     /* solver._MAX_ITERATIONS */
-#define DIC_ROUNDING 1e-12                     /* solver._DIC_ROUNDING */
+#define INV_LN10 0.4342944819032518   /* 1 / ln 10: a product, where a division costs several */
+#define ZERO_CELSIUS_K 273.15         /* constants.ZERO_CELSIUS_K */
+#define GAS_CONSTANT_CM3_ATM 82.05736 /* constants.GAS_CONSTANT_CM3_ATM */
+#define RELATIVE_TOLERANCE 1e-10      /* solver._RELATIVE_TOLERANCE */
+#define MAX_ITERATIONS 200            /* solver._MAX_ITERATIONS */
+#define DIC_ROUNDING 1e-12            /* solver._DIC_ROUNDING */
 
-/* Pairs of given quantities (solver.KERNEL_PAIRS). */
+/* Pairs of given quantities (chemistry.kernel.PAIRS). */
 enum { PH_ALK, PH_DIC, PH_PCO2, ALK_DIC, ALK_PCO2, DIC_PCO2 };
-/* pH scales (solver.PH_SCALES order). */
+/* pH scales (chemistry.kernel._SCALES). */
 enum { SCALE_TOTAL, SCALE_SEAWATER, SCALE_FREE, SCALE_NBS };
-/* Inputs and constant shifts, in the order of solver.KERNEL_INPUTS and CONSTANT_SHIFT_KEYS. */
+/* Input columns (chemistry.kernel.solve_flat) and constant shifts (solver.CONSTANT_SHIFT_KEYS). */
 enum { IN_T, IN_S, IN_PO4, IN_SI, IN_A, IN_B, N_INPUTS };
 enum { SH_K0, SH_K1, SH_K2, SH_KB, SH_KW, SH_KSPA, SH_KSPC, SH_BORON, N_SHIFTS };
 /* Outputs, in the order of solver._OUTPUT_NAMES. */
 enum {
-    OUT_PH_TOTAL, OUT_PH_FREE, OUT_PH_SEAWATER, OUT_PH_NBS, OUT_ALK, OUT_DIC, OUT_CO2, OUT_HCO3,
-    OUT_CO3, OUT_PCO2, OUT_FCO2, OUT_OMEGA_A, OUT_OMEGA_C, OUT_REVELLE, N_OUTPUTS
+    OUT_PH_TOTAL,
+    OUT_PH_FREE,
+    OUT_PH_SEAWATER,
+    OUT_PH_NBS,
+    OUT_ALK,
+    OUT_DIC,
+    OUT_CO2,
+    OUT_HCO3,
+    OUT_CO3,
+    OUT_PCO2,
+    OUT_FCO2,
+    OUT_OMEGA_A,
+    OUT_OMEGA_C,
+    OUT_REVELLE,
+    N_OUTPUTS
 };
 /* Return codes: inputs no water can have (solver._inconsistent messages). */
 enum { OK = 0, NEGATIVE_DIC = 1, CO2_ABOVE_DIC = 2, PH_UNDEFINED = 3, OUT_OF_RANGE = 4 };
 /* Allowed ranges, from chemistry.errors via the caller: low and high of temperature, salinity,
- * the first and the second given quantity, then the nutrients (and shifts: finite). */
+ * the first and the second given quantity. Nutrients must be finite and not negative, shifts
+ * finite. */
 enum { LIM_T, LIM_S = 2, LIM_A = 4, LIM_B = 6, N_LIMITS = 8 };
 
 typedef struct {
@@ -94,9 +112,7 @@ typedef struct {
     int active[BLOCK];
 } block;
 
-static inline __attribute__((always_inline)) void load(const column *c, ptrdiff_t start, int m, double *restrict dest,
-                                            double scale)
-{
+INLINE void load(const column *c, ptrdiff_t start, int m, double *restrict dest, double scale) {
     if (c->data == NULL) {
         for (int i = 0; i < m; i++) dest[i] = 0.0;
     } else if (c->stride == 0) {
@@ -113,9 +129,8 @@ static inline __attribute__((always_inline)) void load(const column *c, ptrdiff_
 
 /* constants.compute_constants (zero pressure), the shifts of solver._shifted and the offsets of
  * scales.ph_offsets_from_total, for m waters. */
-static inline __attribute__((always_inline)) void constants(block *restrict w, int m, int carbonic,
-                                                            int lee2010, int nutrients, int shifted)
-{
+INLINE void constants(block *restrict w, int m, int carbonic, int lee2010, int nutrients,
+                      int shifted) {
     /* Each choice (K1-K2 set, nutrients, shifts) has a loop of its own: a choice inside a loop
      * would have the vectorised loop compute both sides, exp calls and all. */
     for (int i = 0; i < m; i++) {
@@ -140,26 +155,33 @@ static inline __attribute__((always_inline)) void constants(block *restrict w, i
         double cross_delta = 57.7 - 0.118 * tk;
         double fugacity = exp((virial_b + 2.0 * cross_delta) / (GAS_CONSTANT_CM3_ATM * tk));
 
-        double kf = exp(874.0 * inv_tk - 9.68 + 0.111 * sqrt_s); /* _kf_perez_fraga1987 */
+        double kf = exp(874.0 * inv_tk - 9.68 + 0.111 * sqrt_s);   /* _kf_perez_fraga1987 */
         double total_fluoride = (0.000067 / 18.998 / 1.80655) * s; /* total_fluoride_riley1965 */
-        double kb = exp( /* _kb_dickson1990 */
-            (-8966.90 - 2890.53 * sqrt_s - 77.942 * s + 1.728 * s * sqrt_s - 0.0996 * s * s) * inv_tk +
-            148.0248 + 137.1942 * sqrt_s + 1.62142 * s -
-            (24.4344 + 25.085 * sqrt_s + 0.2474 * s) * ln_tk + 0.053105 * sqrt_s * tk);
+        double kb =
+            exp(/* _kb_dickson1990 */
+                (-8966.90 - 2890.53 * sqrt_s - 77.942 * s + 1.728 * s * sqrt_s - 0.0996 * s * s) *
+                    inv_tk +
+                148.0248 + 137.1942 * sqrt_s + 1.62142 * s -
+                (24.4344 + 25.085 * sqrt_s + 0.2474 * s) * ln_tk + 0.053105 * sqrt_s * tk);
         double kw = exp(148.9652 - 13847.26 * inv_tk - 23.6521 * ln_tk + /* _kw_millero1995 */
                         (118.67 * inv_tk - 5.977 + 1.0495 * ln_tk) * sqrt_s - 0.01615 * s);
-        double ks = exp(-4276.1 * inv_tk + 141.328 - 23.093 * ln_tk + /* _ks_dickson1990 */
-                        (-13856.0 * inv_tk + 324.57 - 47.986 * ln_tk) * sqrt_i +
-                        (35474.0 * inv_tk - 771.54 + 114.723 * ln_tk) * ionic +
-                        (-2698.0 * sqrt_i + 1776.0 * ionic) * inv_tk * ionic + ln_solution_to_water);
+        double ks =
+            exp(-4276.1 * inv_tk + 141.328 - 23.093 * ln_tk + /* _ks_dickson1990 */
+                (-13856.0 * inv_tk + 324.57 - 47.986 * ln_tk) * sqrt_i +
+                (35474.0 * inv_tk - 771.54 + 114.723 * ln_tk) * ionic +
+                (-2698.0 * sqrt_i + 1776.0 * ionic) * inv_tk * ionic + ln_solution_to_water);
         double total_sulfate = (0.1400 / 96.062 / 1.80655) * s; /* morris_riley1966 */
         /* 1 / Ksp straight from the exponent: the saturation states then need no division. */
-        double inv_ksp_c = exp(-LN10 * ( /* _ksp_calcite_mucci1983 */
-            -171.9065 - 0.077993 * tk + 2839.319 * inv_tk + 71.595 * INV_LN10 * ln_tk +
-            (-0.77712 + 0.0028426 * tk + 178.34 * inv_tk) * sqrt_s + s * (0.0041249 * sqrt_s - 0.07711)));
-        double inv_ksp_a = exp(-LN10 * ( /* _ksp_aragonite_mucci1983 */
-            -171.945 - 0.077993 * tk + 2903.293 * inv_tk + 71.595 * INV_LN10 * ln_tk +
-            (-0.068393 + 0.0017276 * tk + 88.135 * inv_tk) * sqrt_s + s * (0.0059415 * sqrt_s - 0.10018)));
+        double inv_ksp_c =
+            exp(-LN10 * (/* _ksp_calcite_mucci1983 */
+                         -171.9065 - 0.077993 * tk + 2839.319 * inv_tk + 71.595 * INV_LN10 * ln_tk +
+                         (-0.77712 + 0.0028426 * tk + 178.34 * inv_tk) * sqrt_s +
+                         s * (0.0041249 * sqrt_s - 0.07711)));
+        double inv_ksp_a =
+            exp(-LN10 * (/* _ksp_aragonite_mucci1983 */
+                         -171.945 - 0.077993 * tk + 2903.293 * inv_tk + 71.595 * INV_LN10 * ln_tk +
+                         (-0.068393 + 0.0017276 * tk + 88.135 * inv_tk) * sqrt_s +
+                         s * (0.0059415 * sqrt_s - 0.10018)));
         double total_boron = (lee2010 ? 0.0004326 / 35.0 : 0.000416 / 35.0) * s;
         double calcium = (0.02128 / 40.078 / 1.80655) * s; /* calcium_riley_tongudai1967 */
 
@@ -189,8 +211,10 @@ static inline __attribute__((always_inline)) void constants(block *restrict w, i
     if (carbonic == 0)
         for (int i = 0; i < m; i++) { /* _k1_lueker2000, _k2_lueker2000 */
             double inv_tk = w->inv_tk[i], ln_tk = w->ln_tk[i], s = w->s[i];
-            double pk1 = 3633.86 * inv_tk - 61.2172 + 9.6777 * ln_tk + s * (0.0001152 * s - 0.011555);
-            double pk2 = 471.78 * inv_tk + 25.9290 - 3.16967 * ln_tk + s * (0.0001122 * s - 0.01781);
+            double pk1 =
+                3633.86 * inv_tk - 61.2172 + 9.6777 * ln_tk + s * (0.0001152 * s - 0.011555);
+            double pk2 =
+                471.78 * inv_tk + 25.9290 - 3.16967 * ln_tk + s * (0.0001122 * s - 0.01781);
             w->k1[i] = exp(-LN10 * pk1);
             w->k2[i] = exp(-LN10 * pk2);
         }
@@ -205,7 +229,8 @@ static inline __attribute__((always_inline)) void constants(block *restrict w, i
             double a2 = 21.3728 * sqrt_s + 0.1218 * s - 3.688e-4 * s * s;
             double b2 = -788.289 * sqrt_s - 19.189 * s;
             double c2 = -3.374 * sqrt_s;
-            double to_total = 1.0 / (1.0 + w->total_fluoride[i] / w->kf[i]); /* _seawater_to_total_factor */
+            double to_total =
+                1.0 / (1.0 + w->total_fluoride[i] / w->kf[i]); /* _seawater_to_total_factor */
             w->k1[i] = exp(-LN10 * (pk1_pure + a1 + b1 * inv_tk + c1 * ln_tk)) * to_total;
             w->k2[i] = exp(-LN10 * (pk2_pure + a2 + b2 * inv_tk + c2 * ln_tk)) * to_total;
         }
@@ -213,22 +238,26 @@ static inline __attribute__((always_inline)) void constants(block *restrict w, i
         for (int i = 0; i < m; i++) { /* _k1p, _k2p, _k3p, _ksi_millero1995 */
             double inv_tk = w->inv_tk[i], ln_tk = w->ln_tk[i], s = w->s[i], sqrt_s = w->sqrt_s[i];
             double ionic = w->ionic[i], sqrt_i = w->sqrt_i[i];
-            double k1p = exp(-4576.752 * inv_tk + 115.525 - 18.453 * ln_tk +
-                             (-106.736 * inv_tk + 0.69171) * sqrt_s + (-0.65643 * inv_tk - 0.01844) * s);
-            double k2p = exp(-8814.715 * inv_tk + 172.0883 - 27.927 * ln_tk +
-                             (-160.340 * inv_tk + 1.3566) * sqrt_s + (0.37335 * inv_tk - 0.05778) * s);
+            double k1p =
+                exp(-4576.752 * inv_tk + 115.525 - 18.453 * ln_tk +
+                    (-106.736 * inv_tk + 0.69171) * sqrt_s + (-0.65643 * inv_tk - 0.01844) * s);
+            double k2p =
+                exp(-8814.715 * inv_tk + 172.0883 - 27.927 * ln_tk +
+                    (-160.340 * inv_tk + 1.3566) * sqrt_s + (0.37335 * inv_tk - 0.05778) * s);
             double k3p = exp(-3070.75 * inv_tk - 18.141 + (17.27039 * inv_tk + 2.81197) * sqrt_s +
                              (-44.99486 * inv_tk - 0.09984) * s);
-            double ksi = exp(-8904.2 * inv_tk + 117.385 - 19.334 * ln_tk +
-                             (-458.79 * inv_tk + 3.5913) * sqrt_i + (188.74 * inv_tk - 1.5998) * ionic +
-                             (-12.1652 * inv_tk + 0.07871) * ionic * ionic + w->ln_solution_to_water[i]);
+            double ksi =
+                exp(-8904.2 * inv_tk + 117.385 - 19.334 * ln_tk +
+                    (-458.79 * inv_tk + 3.5913) * sqrt_i + (188.74 * inv_tk - 1.5998) * ionic +
+                    (-12.1652 * inv_tk + 0.07871) * ionic * ionic + w->ln_solution_to_water[i]);
             w->k1p[i] = k1p;
             w->k1p_k2p[i] = k1p * k2p;
             w->k1p_k2p_k3p[i] = k1p * k2p * k3p;
             w->ksi[i] = ksi;
         }
     if (shifted)
-        for (int i = 0; i < m; i++) { /* solver._shifted: K times 10**-shift, boron times (1 + shift) */
+        for (int i = 0; i < m;
+             i++) { /* solver._shifted: K times 10**-shift, boron times (1 + shift) */
             w->k0[i] *= exp(-LN10 * w->shift[SH_K0][i]);
             w->k1[i] *= exp(-LN10 * w->shift[SH_K1][i]);
             w->k2[i] *= exp(-LN10 * w->shift[SH_K2][i]);
@@ -242,9 +271,8 @@ static inline __attribute__((always_inline)) void constants(block *restrict w, i
 }
 
 /* solver._Water.noncarbonate: alkalinity of everything but the carbonate system, and d/dh. */
-static inline __attribute__((always_inline)) double noncarbonate(const block *restrict w, int i, double h, int nutrients,
-                                  double *restrict dalk)
-{
+INLINE double noncarbonate(const block *restrict w, int i, double h, int nutrients,
+                           double *restrict dalk) {
     /* Reciprocals once, products after: a division costs several multiplications. */
     double inv_borate_den = 1.0 / (w->kb[i] + h);
     double inv_h = 1.0 / h;
@@ -276,8 +304,7 @@ static inline __attribute__((always_inline)) double noncarbonate(const block *re
 }
 
 /* solver._Water.water_root: [H+]_T where (KW + extra_kw)/h - free_fraction h = level. */
-static inline __attribute__((always_inline)) double water_root(const block *restrict w, int i, double level, double extra_kw)
-{
+INLINE double water_root(const block *restrict w, int i, double level, double extra_kw) {
     double kw = w->kw[i] + extra_kw;
     double c = w->free_fraction[i];
     double root = sqrt(level * level + 4.0 * c * kw);
@@ -285,17 +312,15 @@ static inline __attribute__((always_inline)) double water_root(const block *rest
 }
 
 /* solver._Water.bounds (Munhoven2013). */
-static inline __attribute__((always_inline)) void bounds(const block *restrict w, int i, int nutrients, double *low, double *high)
-{
+INLINE void bounds(const block *restrict w, int i, int nutrients, double *low, double *high) {
     *low = -w->total_sulfate[i] - w->total_fluoride[i] - (nutrients ? w->po4[i] : 0.0);
     *high = w->total_boron[i] + (nutrients ? 2.0 * w->po4[i] + w->si[i] : 0.0);
 }
 
 /* Alkalinity at [H+] = h for the given DIC (co2 < 0) or CO2 (solver._alkalinity_at_dic and
  * _alkalinity_at_co2), and its d/dh. */
-static inline __attribute__((always_inline)) double alkalinity_at(const block *restrict w, int i, double h, int with_dic,
-                                   int nutrients, double *restrict slope)
-{
+INLINE double alkalinity_at(const block *restrict w, int i, double h, int with_dic, int nutrients,
+                            double *restrict slope) {
     double dnon;
     double non = noncarbonate(w, i, h, nutrients, &dnon);
     double k1 = w->k1[i], k1k2 = w->k1k2[i];
@@ -314,8 +339,7 @@ static inline __attribute__((always_inline)) double alkalinity_at(const block *r
 
 /* solver._newton_array over one block: every element steps until its own test is met; the
  * loop over the block runs with a mask so that it vectorises. */
-static inline __attribute__((always_inline)) void newton(block *restrict w, int m, int with_dic, int nutrients)
-{
+INLINE void newton(block *restrict w, int m, int with_dic, int nutrients) {
     for (int i = 0; i < m; i++) {
         double h = w->h[i];
         if (!(h >= w->low[i] && h <= w->high[i])) w->h[i] = sqrt(w->low[i] * w->high[i]);
@@ -347,8 +371,7 @@ static inline __attribute__((always_inline)) void newton(block *restrict w, int 
 
 /* [H+] from alkalinity with DIC or with CO2: solver._h_from_alkalinity_dic and
  * _h_from_alkalinity_co2 (bracket, starting value, Newton). */
-static inline __attribute__((always_inline)) void h_from_alkalinity(block *restrict w, int m, int with_dic, int nutrients)
-{
+INLINE void h_from_alkalinity(block *restrict w, int m, int with_dic, int nutrients) {
     for (int i = 0; i < m; i++) {
         double low_bound, high_bound, alk = w->alk[i], k1 = w->k1[i], k1k2 = w->k1k2[i];
         bounds(w, i, nutrients, &low_bound, &high_bound);
@@ -372,7 +395,8 @@ static inline __attribute__((always_inline)) void h_from_alkalinity(block *restr
             double co2 = w->co2_given[i];
             double low = water_root(w, i, alk - low_bound, co2 * k1);
             w->low[i] = low;
-            w->high[i] = water_root(w, i, alk - high_bound - 2.0 * co2 * k1k2 / (low * low), co2 * k1);
+            w->high[i] =
+                water_root(w, i, alk - high_bound - 2.0 * co2 * k1k2 / (low * low), co2 * k1);
             double b = co2 * k1;
             double disc = b * b + 8.0 * carbonate_alk * co2 * k1k2;
             h0 = (b + sqrt(disc)) / (2.0 * carbonate_alk);
@@ -383,8 +407,7 @@ static inline __attribute__((always_inline)) void h_from_alkalinity(block *restr
 }
 
 /* The first element (from 0) of m where flag is set, or -1. */
-static int first_set(const int *flag, int m)
-{
+static int first_set(const int *flag, int m) {
     for (int i = 0; i < m; i++)
         if (flag[i]) return i;
     return -1;
@@ -392,10 +415,8 @@ static int first_set(const int *flag, int m)
 
 /* One block of m waters. Inlined into a copy per nutrient case (below), so that the loops
  * carry no branch the compiler cannot take out of them and so vectorise. */
-static inline __attribute__((always_inline)) int
-solve_block(block *restrict w, int m, int pair, int ph_scale, int nutrients, int carbonic,
-            int lee2010, int shifted, int *bad)
-{
+INLINE int solve_block(block *restrict w, int m, int pair, int ph_scale, int nutrients,
+                       int carbonic, int lee2010, int shifted, int *bad) {
     constants(w, m, carbonic, lee2010, nutrients, shifted);
     int *flag = w->active;
     int ph_given = pair == PH_ALK || pair == PH_DIC || pair == PH_PCO2;
@@ -412,8 +433,9 @@ solve_block(block *restrict w, int m, int pair, int ph_scale, int nutrients, int
         w->co2_given[i] = pco2 * w->fugacity[i] * w->k0[i];
     }
     if (ph_given) {
-        const double *offset = ph_scale == SCALE_FREE ? w->off_free
-                             : ph_scale == SCALE_SEAWATER ? w->off_seawater : w->off_nbs;
+        const double *offset = ph_scale == SCALE_FREE       ? w->off_free
+                               : ph_scale == SCALE_SEAWATER ? w->off_seawater
+                                                            : w->off_nbs;
         int on_total = ph_scale == SCALE_TOTAL;
         for (int i = 0; i < m; i++) {
             double ph_total = w->a[i] - (on_total ? 0.0 : offset[i]);
@@ -491,7 +513,8 @@ solve_block(block *restrict w, int m, int pair, int ph_scale, int nutrients, int
         w->out[OUT_PH_FREE][i] = ph_total + w->off_free[i];
         w->out[OUT_PH_SEAWATER][i] = ph_total + w->off_seawater[i];
         w->out[OUT_PH_NBS][i] = ph_total + w->off_nbs[i];
-        w->out[OUT_ALK][i] = alk_from_dic * PER_MICRO; /* replaced below when alkalinity was given */
+        w->out[OUT_ALK][i] =
+            alk_from_dic * PER_MICRO; /* replaced below when alkalinity was given */
         w->out[OUT_DIC][i] = dic * PER_MICRO;
         w->out[OUT_CO2][i] = co2 * PER_MICRO;
         w->out[OUT_HCO3][i] = dic_den * k1h * PER_MICRO;
@@ -509,8 +532,7 @@ solve_block(block *restrict w, int m, int pair, int ph_scale, int nutrients, int
 }
 
 /* Whether every value lies in [low, high]; NaN does not. Bitwise, so that it vectorises. */
-static inline __attribute__((always_inline)) int within(const double *restrict x, int m, double low, double high)
-{
+INLINE int within(const double *restrict x, int m, double low, double high) {
     int outside = 0;
     for (int i = 0; i < m; i++) outside |= (x[i] < low) | (x[i] > high) | (x[i] != x[i]);
     return !outside;
@@ -520,8 +542,7 @@ static inline __attribute__((always_inline)) int within(const double *restrict x
  * warnings). Eight running lanes, each a select: a plain min/max reduction does not vectorise
  * without -ffast-math. The values are already known not to be NaN. */
 #define LANES 8
-static inline __attribute__((always_inline)) void extend(const double *restrict x, int m, double *extremes)
-{
+INLINE void extend(const double *restrict x, int m, double *extremes) {
     double low[LANES], high[LANES];
     for (int j = 0; j < LANES; j++) {
         low[j] = extremes[0];
@@ -547,11 +568,7 @@ static inline __attribute__((always_inline)) void extend(const double *restrict 
 /* Copy one block's row of an output to its place. The outputs of a large solve (112 bytes a
  * reading) are far larger than the caches and are not read back here: on x86-64, streaming
  * stores write them without first reading each line into the cache. */
-static inline __attribute__((always_inline)) void store_row(double *restrict dest, const double *restrict src, int m)
-{
-#ifdef NO_STORE
-    (void)dest; (void)src; (void)m; return;
-#endif
+INLINE void store_row(double *restrict dest, const double *restrict src, int m) {
 #if defined(__SSE2__)
     if (((uintptr_t)dest & 15) == 0) {
         int i = 0;
@@ -563,13 +580,12 @@ static inline __attribute__((always_inline)) void store_row(double *restrict des
     memcpy(dest, src, (size_t)m * sizeof(double));
 }
 
-/* Every block of waters begin to end (of n): load, check, solve, store. Returns OK, OUT_OF_RANGE or the code of
- * the first inconsistent water (its index in *bad_index). */
-static inline __attribute__((always_inline)) int
-solve_all(block *restrict w, ptrdiff_t n, ptrdiff_t begin, ptrdiff_t end, const column *inputs,
-          const column *shifts, int pair, int ph_scale, int nutrients, int carbonic, int lee2010,
-          const double *limits, double *out, double *extremes, ptrdiff_t *bad_index)
-{
+/* Every block of waters begin to end (of n): load, check, solve, store. Returns OK, OUT_OF_RANGE or
+ * the code of the first inconsistent water (its index in *bad_index). */
+INLINE int solve_all(block *restrict w, ptrdiff_t n, ptrdiff_t begin, ptrdiff_t end,
+                     const column *inputs, const column *shifts, int pair, int ph_scale,
+                     int nutrients, int carbonic, int lee2010, const double *limits, double *out,
+                     double *extremes, ptrdiff_t *bad_index) {
     for (ptrdiff_t start = begin; start < end; start += BLOCK) {
         int m = (int)(end - start < BLOCK ? end - start : BLOCK);
         load(&inputs[IN_T], start, m, w->t, 1.0);
@@ -592,8 +608,8 @@ solve_all(block *restrict w, ptrdiff_t n, ptrdiff_t begin, ptrdiff_t end, const 
         extend(w->t, m, extremes);
         extend(w->s, m, extremes + 2);
         int bad = -1;
-        int code = solve_block(w, m, pair, ph_scale, nutrients, carbonic, lee2010,
-                               shifts != NULL, &bad);
+        int code =
+            solve_block(w, m, pair, ph_scale, nutrients, carbonic, lee2010, shifts != NULL, &bad);
         if (code != OK) {
             *bad_index = start + bad;
             return code;
@@ -608,15 +624,13 @@ solve_all(block *restrict w, ptrdiff_t n, ptrdiff_t begin, ptrdiff_t end, const 
 typedef int (*pair_solver)(block *restrict, ptrdiff_t, ptrdiff_t, ptrdiff_t, const column *,
                            const column *, int, int, int, const double *, double *, double *,
                            ptrdiff_t *);
-#define PAIR_SOLVER(NAME, PAIR, NUTRIENTS)                                                      \
-    SPATLINE_CLONES static int NAME(block *restrict w, ptrdiff_t n, ptrdiff_t begin,            \
-                                    ptrdiff_t end, const column *inputs, const column *shifts,  \
-                                    int ph_scale, int carbonic, int lee2010,                    \
-                                    const double *limits, double *out, double *extremes,        \
-                                    ptrdiff_t *bad_index)                                       \
-    {                                                                                           \
-        return solve_all(w, n, begin, end, inputs, shifts, PAIR, ph_scale, NUTRIENTS, carbonic, \
-                         lee2010, limits, out, extremes, bad_index);                            \
+#define PAIR_SOLVER(NAME, PAIR, NUTRIENTS)                                                         \
+    SPATLINE_CLONES static int NAME(block *restrict w, ptrdiff_t n, ptrdiff_t begin,               \
+                                    ptrdiff_t end, const column *inputs, const column *shifts,     \
+                                    int ph_scale, int carbonic, int lee2010, const double *limits, \
+                                    double *out, double *extremes, ptrdiff_t *bad_index) {         \
+        return solve_all(w, n, begin, end, inputs, shifts, PAIR, ph_scale, NUTRIENTS, carbonic,    \
+                         lee2010, limits, out, extremes, bad_index);                               \
     }
 PAIR_SOLVER(solve_ph_alk, PH_ALK, 0)
 PAIR_SOLVER(solve_ph_dic, PH_DIC, 0)
@@ -650,8 +664,7 @@ typedef struct {
     int code;
 } share;
 
-static void *solve_share(void *argument)
-{
+static void *solve_share(void *argument) {
     share *task = argument;
     task->extremes[0] = task->extremes[2] = INFINITY;
     task->extremes[1] = task->extremes[3] = -INFINITY;
@@ -681,10 +694,9 @@ static void *solve_share(void *argument)
  * temperature, then salinity. Returns OK, OUT_OF_RANGE for an input outside its limits, or the
  * code of the first inconsistent water, whose index goes to *bad_index; -1 when out of memory.
  */
-int spatline_solve(ptrdiff_t n, const column *inputs, const column *shifts, int pair,
-                   int ph_scale, int carbonic, int lee2010, int nutrients, const double *limits,
-                   double *out, double *extremes, ptrdiff_t *bad_index, int threads)
-{
+int spatline_solve(ptrdiff_t n, const column *inputs, const column *shifts, int pair, int ph_scale,
+                   int carbonic, int lee2010, int nutrients, const double *limits, double *out,
+                   double *extremes, ptrdiff_t *bad_index, int threads) {
     if (pair < 0 || pair > DIC_PCO2) return -2;
     if (threads < 1) threads = 1;
     if (threads > MAX_THREADS) threads = MAX_THREADS;
@@ -744,8 +756,11 @@ int spatline_solve(ptrdiff_t n, const column *inputs, const column *shifts, int 
 /* An importable module, so that the build and the import follow Python's own rules; the
  * solver calls spatline_solve through ctypes on this module's file. */
 static struct PyModuleDef kernel_module = {
-    PyModuleDef_HEAD_INIT, "_kernel",
-    "Compiled array path of chemistry.solver.solve (called through ctypes).", -1, NULL,
+    PyModuleDef_HEAD_INIT,
+    "_kernel",
+    "Compiled array path of chemistry.solver.solve (called through ctypes).",
+    -1,
+    NULL,
 };
 
 PyMODINIT_FUNC PyInit__kernel(void) { return PyModule_Create(&kernel_module); }
