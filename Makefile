@@ -11,7 +11,8 @@ PORT ?= 8000
 
 .PHONY: venv test test-sqlite test-postgres lint demo serve bench clean
 
-$(STAMP): pyproject.toml
+# setup.py and the kernel source too: an edited kernel is rebuilt by the next make.
+$(STAMP): pyproject.toml setup.py chemistry/_kernel.c
 	$(PYTHON) -c 'import sys; sys.exit("Python 3.11 or newer is needed, found " + sys.version.split()[0]) if sys.version_info < (3, 11) else None'
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e '.[dev]'
