@@ -344,6 +344,25 @@ def _floor_quarter(seconds: float) -> int:
     return int(seconds // QUARTER_SECONDS * QUARTER_SECONDS)
 
 
+def _pieces(start: dt.datetime, end: dt.datetime) -> tuple[int, int, list[tuple[float, float]]]:
+    """The whole quarters [first, last) inside [start, end) and the cut parts either side."""
+    s, e = start.timestamp(), end.timestamp()
+    first, last = _ceil_quarter(s), _floor_quarter(e)
+    if first >= last:
+        return first, first, [(s, e)] if e > s else []
+    return first, last, [p for p in ((s, first), (last, e)) if p[1] > p[0]]
+
+
+def _partial(dialect: str, station_pks: Sequence[int], lo: float, hi: float) -> Any:
+    """Rollup rows of the readings in [lo, hi) only (a quarter cut by the window)."""
+    return aggregate_select(
+        dialect,
+        Reading.station_pk.in_(list(station_pks)),
+        Reading.observed_at >= _from_epoch_float(lo),
+        Reading.observed_at < _from_epoch_float(hi),
+    ).subquery()
+
+
 def quarters_between(
     *,
     session: Session,
@@ -357,52 +376,119 @@ def quarters_between(
     Whole quarters come from the rollup table; the part of a quarter cut by ``start`` or
     ``end`` (today's status ends now) is aggregated from the readings of that part only, with
     the same aggregate, so every figure covers exactly the window. Rows are in time order;
-    ``quarter_start`` is always included.
+    ``quarter_start`` is always included. Null sums and extremes come as NaN.
     """
     names = ("quarter_start", *(n for n in names if n != "quarter_start"))
-    s, e = start.timestamp(), end.timestamp()
-    first, last = _ceil_quarter(s), _floor_quarter(e)
+    first, last, pieces = _pieces(start, end)
     connection = session.connection()
     dialect = connection.dialect.name
-    rows: list[tuple[Any, ...]] = []
-    pieces: list[tuple[float, float]] = []
-    if first >= last:
-        pieces.append((s, e))
-    else:
-        table = ReadingRollup.__table__
-        rows.extend(
-            connection.execute(
-                select(table.c.station_pk, *(table.c[n] for n in names)).where(
-                    table.c.station_pk.in_(list(station_pks)),
-                    table.c.quarter_start >= first,
-                    table.c.quarter_start < last,
-                )
-            ).all()
+    table = ReadingRollup.__table__
+    rows = []
+    if last > first:
+        rows = driver_rows(
+            connection,
+            select(table.c.station_pk, *(table.c[n] for n in names))
+            .where(
+                table.c.station_pk.in_(list(station_pks)),
+                table.c.quarter_start >= first,
+                table.c.quarter_start < last,
+            )
+            .order_by(table.c.station_pk, table.c.quarter_start),
         )
-        pieces.extend(p for p in ((s, first), (last, e)) if p[1] > p[0])
     for lo, hi in pieces:
-        partial = aggregate_select(
-            dialect,
-            Reading.station_pk.in_(list(station_pks)),
-            Reading.observed_at >= _from_epoch_float(lo),
-            Reading.observed_at < _from_epoch_float(hi),
-        ).subquery()
-        rows.extend(
-            connection.execute(
-                select(partial.c.station_pk, *(partial.c[n] for n in names))
-            ).all()
-        )
-    by_station: dict[int, list[tuple[Any, ...]]] = {pk: [] for pk in station_pks}
+        partial = _partial(dialect, station_pks, lo, hi)
+        rows += connection.execute(
+            select(partial.c.station_pk, *(partial.c[n] for n in names))
+        ).all()
+    columns = list(zip(*rows, strict=True)) if rows else [()] * (len(names) + 1)
+    station = np.array(columns[0], dtype=np.int64)
+    arrays = {
+        name: np.array(values, dtype=_dtype(name))
+        for name, values in zip(names, columns[1:], strict=True)
+    }
+    if pieces and station.size:  # cut quarters were appended: back into time order
+        order = np.lexsort((arrays["quarter_start"], station))
+        station = station[order]
+        arrays = {name: values[order] for name, values in arrays.items()}
+    out = {}
+    for pk in station_pks:
+        lo, hi = np.searchsorted(station, pk, "left"), np.searchsorted(station, pk, "right")
+        out[pk] = {name: values[lo:hi] for name, values in arrays.items()}
+    return out
+
+
+def driver_rows(connection: Any, statement: Any) -> list[tuple[Any, ...]]:
+    """The rows of ``statement`` as the database driver gives them (plain tuples, no
+    result processing: SQLite times stay text).
+
+    A week of quarters for six stations is thousands of rows, and a day of readings
+    1,500; SQLAlchemy's result rows cost more than the query itself.
+    """
+    result = connection.execute(statement)
+    try:
+        return list(result.cursor.fetchall())
+    finally:
+        result.close()
+
+
+def _total(name: str) -> Any:
+    """How a rollup column adds up over quarters."""
+    if name.endswith("_min"):
+        return func.min
+    if name.endswith("_max"):
+        return func.max
+    return func.sum
+
+
+def totals_between(
+    *,
+    session: Session,
+    station_pks: Sequence[int],
+    start: dt.datetime,
+    end: dt.datetime,
+    names: Sequence[str],
+) -> dict[int, dict[str, Any]]:
+    """Per station, the rollup columns added up over [start, end): counts and sums summed,
+    minima and maxima taken; cut quarters at either end from their readings, as in
+    :func:`quarters_between`. A station without readings gets zero counts and ``None``."""
+    first, last, pieces = _pieces(start, end)
+    connection = session.connection()
+    dialect = connection.dialect.name
+    table = ReadingRollup.__table__
+    rows = []
+    if last > first:
+        rows = connection.execute(
+            select(table.c.station_pk, *(_total(n)(table.c[n]) for n in names))
+            .where(
+                table.c.station_pk.in_(list(station_pks)),
+                table.c.quarter_start >= first,
+                table.c.quarter_start < last,
+            )
+            .group_by(table.c.station_pk)
+        ).all()
+    for lo, hi in pieces:
+        partial = _partial(dialect, station_pks, lo, hi)
+        rows += connection.execute(
+            select(partial.c.station_pk, *(_total(n)(partial.c[n]) for n in names)).group_by(
+                partial.c.station_pk
+            )
+        ).all()
+    zero = {n: None if n.endswith(("_min", "_max", "_sum")) else 0 for n in names}
+    out: dict[int, dict[str, Any]] = {pk: dict(zero) for pk in station_pks}
     for row in rows:
-        by_station[row[0]].append(row[1:])
-    out: dict[int, dict[str, np.ndarray]] = {}
-    for pk, station_rows in by_station.items():
-        station_rows.sort(key=lambda row: row[0])
-        columns = list(zip(*station_rows, strict=True)) if station_rows else [()] * len(names)
-        out[pk] = {
-            name: np.array(values, dtype=_dtype(name))
-            for name, values in zip(names, columns, strict=True)
-        }
+        totals = out[row[0]]
+        for name, value in zip(names, row[1:], strict=True):
+            if value is None:
+                continue
+            held = totals[name]
+            if held is None:
+                totals[name] = value
+            elif name.endswith("_min"):
+                totals[name] = min(held, value)
+            elif name.endswith("_max"):
+                totals[name] = max(held, value)
+            else:
+                totals[name] = held + value
     return out
 
 
