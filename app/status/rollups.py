@@ -40,6 +40,7 @@ from sqlalchemy import (
     Float,
     ForeignKey,
     Integer,
+    Text,
     and_,
     case,
     cast,
@@ -54,6 +55,7 @@ from sqlalchemy import (
     select,
     text,
 )
+from sqlalchemy.dialects.postgresql import aggregate_order_by
 from sqlalchemy.orm import Mapped, Session, mapped_column
 from sqlalchemy.sql.elements import ColumnElement
 
@@ -499,6 +501,81 @@ def _from_epoch_float(seconds: float) -> dt.datetime:
 def _dtype(name: str) -> Any:
     column = ReadingRollup.__table__.c[name]
     return np.int64 if isinstance(column.type, (Integer, BigInteger)) else float
+
+
+def minute_masks_between(
+    *,
+    session: Session,
+    station_pks: Sequence[int],
+    start: dt.datetime,
+    end: dt.datetime,
+) -> dict[int, tuple[np.ndarray, np.ndarray, int]]:
+    """Per station: quarter starts and minute masks over [start, end) in time order, and the
+    number of readings off a whole minute.
+
+    The same figures as :func:`quarters_between`, with each station's quarters joined into
+    one text column by the database (``group_concat`` / ``string_agg``): a week of six
+    stations is 6 rows instead of 4,000, which is most of the cost of reading them.
+    """
+    first, last, pieces = _pieces(start, end)
+    connection = session.connection()
+    table = ReadingRollup.__table__
+    out: dict[int, tuple[list[np.ndarray], list[np.ndarray], int]] = {
+        pk: ([], [], 0) for pk in station_pks
+    }
+    if last > first:
+        if connection.dialect.name == "postgresql":
+
+            def joined(column: Any) -> Any:
+                return func.string_agg(
+                    cast(column, Text), aggregate_order_by(literal(","), table.c.quarter_start)
+                )
+        else:
+
+            def joined(column: Any) -> Any:
+                return func.group_concat(column)
+
+        rows = driver_rows(
+            connection,
+            select(
+                table.c.station_pk,
+                func.sum(table.c.off_minute),
+                joined(table.c.quarter_start),
+                joined(table.c.minute_mask),
+            )
+            .where(
+                table.c.station_pk.in_(list(station_pks)),
+                table.c.quarter_start >= first,
+                table.c.quarter_start < last,
+            )
+            .group_by(table.c.station_pk),
+        )
+        for pk, off_minute, quarters, masks in rows:
+            out[pk] = (
+                [np.array(quarters.split(","), dtype=np.int64)],
+                [np.array(masks.split(","), dtype=np.int64)],
+                int(off_minute),
+            )
+    for lo, hi in pieces:  # cut quarters, from their readings
+        part = quarters_between(
+            session=session,
+            station_pks=station_pks,
+            start=_from_epoch_float(lo),
+            end=_from_epoch_float(hi),
+            names=("off_minute", "minute_mask"),
+        )
+        for pk, columns in part.items():
+            quarters, masks, off = out[pk]
+            quarters.append(columns["quarter_start"])
+            masks.append(columns["minute_mask"])
+            out[pk] = (quarters, masks, off + int(columns["off_minute"].sum()))
+    result = {}
+    for pk, (quarters, masks, off) in out.items():
+        q = np.concatenate(quarters) if quarters else np.empty(0, dtype=np.int64)
+        m = np.concatenate(masks) if masks else np.empty(0, dtype=np.int64)
+        order = np.argsort(q, kind="stable")
+        result[pk] = (q[order], m[order], off)
+    return result
 
 
 def occupied_minutes(quarter_start: np.ndarray, minute_mask: np.ndarray) -> np.ndarray:

@@ -276,11 +276,12 @@ def _series(*, good_times: Any, prediction: Any) -> TankSeries:
 
 
 def omega_at_temperature(
-    *, site: Site, readings: Sequence[Reading], temperature_c: float
+    *, site: Site, readings: Sequence[Reading], temperature_c: float | Sequence[float]
 ) -> tuple[list[datetime], np.ndarray]:
     """Omega aragonite of each good reading's water carried to ``temperature_c`` (closed).
 
     Without the uncertainty budget: the fill-window hint and the chart need the values only.
+    With one reading, ``temperature_c`` may be several temperatures (one value each).
     """
     good = _good(readings)
     if not good:
@@ -293,7 +294,7 @@ def omega_at_temperature(
         ph_scale="total",
         carbonic=site.carbonic_constants,
     )
-    carried = chemistry.at_temperature(state, float(temperature_c))
+    carried = chemistry.at_temperature(state, np.asarray(temperature_c, dtype=float))
     return [r.observed_at for r in good], np.atleast_1d(
         np.asarray(carried.omega_aragonite, dtype=float)
     )
@@ -349,13 +350,12 @@ def _day_figures(totals: dict[str, Any]) -> dict[str, Any]:
     return figures
 
 
-#: Rollup columns the station figures add up over the day, and read for the look-back week.
+#: Rollup columns the station figures add up over the day.
 _DAY_ROLLUP_COLUMNS = (
     "readings",
     *rollups.QC_FLAG_COLUMNS.values(),
     *(f"{name}_{part}" for name in DAY_VARIABLES for part in ("n", "min", "max", "sum")),
 )
-_WEEK_ROLLUP_COLUMNS = ("off_minute", "minute_mask")
 
 
 def station_status(
@@ -364,20 +364,21 @@ def station_status(
     station: Station,
     window: DayWindow,
     day: dict[str, Any],
-    week: dict[str, np.ndarray],
+    week: tuple[np.ndarray, np.ndarray, int],
     latest: Reading | None,
 ) -> dict[str, Any]:
     """A station's day from its quarter-hour rollups (``day``: the day's totals from
-    :func:`app.status.rollups.totals_between`; ``week``: the look-back's quarters from
-    :func:`app.status.rollups.quarters_between`).
+    :func:`app.status.rollups.totals_between`; ``week``: the look-back's quarter starts,
+    minute masks and off-minute count from :func:`app.status.rollups.minute_masks_between`).
 
     The usual sampling interval (median spacing of the week's distinct reading times) and
     the completeness need reading times. When every reading of the week is on a whole
     minute, the rollups' occupied minutes are exactly those times; otherwise (seconds in
     the times, sub-minute sampling) the times are read from the readings as before.
     """
-    if int(week["off_minute"].sum()) == 0:
-        history = rollups.occupied_minutes(week["quarter_start"], week["minute_mask"])
+    quarter_start, minute_mask, off_minute = week
+    if off_minute == 0:
+        history = rollups.occupied_minutes(quarter_start, minute_mask)
     else:
         history = station_columns(
             session=session,
@@ -514,26 +515,29 @@ def tank_status(
     }
 
 
-def _quarter_omega_at_temperature(
-    *, site: Site, week: dict[str, np.ndarray], filled: np.ndarray, temperature_c: float
+def _quarter_omega_at_temperatures(
+    *, site: Site, week: dict[str, np.ndarray], filled: np.ndarray, temperatures: Sequence[float]
 ) -> np.ndarray:
-    """Omega aragonite of each quarter hour's mean water carried to ``temperature_c``.
+    """Omega aragonite of each quarter hour's mean water carried to each temperature (one
+    row per temperature, one solve for all).
 
     The mean water is the mean alkalinity, DIC and salinity of the quarter's good readings
     (stored at ingest); alkalinity and DIC do not change on heating in a closed system, so
     this is the water at the tank's temperature.
     """
-    if not np.any(filled):
-        return np.empty(0)
+    if not np.any(filled) or not temperatures:
+        return np.empty((len(temperatures), 0))
     good = week["good"][filled]
     state = chemistry.solve(
-        temperature=float(temperature_c),
+        temperature=np.asarray(temperatures, dtype=float)[:, None],
         salinity=week["good_salinity_sum"][filled] / good,
         alkalinity=week["good_alkalinity_sum"][filled] / good,
         dic=week["good_dic_sum"][filled] / good,
         carbonic=site.carbonic_constants,
     )
-    return np.atleast_1d(np.asarray(state.omega_aragonite, dtype=float))
+    return np.broadcast_to(
+        np.asarray(state.omega_aragonite, dtype=float), (len(temperatures), int(good.size))
+    )
 
 
 def _fill_sources(stations: Sequence[Station], tanks: Sequence[Tank]) -> list[Station]:
@@ -589,22 +593,23 @@ def fill_window_hints(
         )
         if latest is not None and latest.observed_at < window.as_of - LOOKBACK:
             latest = None
-        for temperature in temperatures:
-            omega = _quarter_omega_at_temperature(
-                site=site, week=week, filled=filled, temperature_c=temperature
-            )
+        omegas = _quarter_omega_at_temperatures(
+            site=site, week=week, filled=filled, temperatures=temperatures
+        )
+        # The latest good reading's own water at every temperature, in one solve.
+        current = (
+            None
+            if latest is None
+            else omega_at_temperature(site=site, readings=[latest], temperature_c=temperatures)
+        )
+        for number, temperature in enumerate(temperatures):
             hint = compute.fill_window_hint(
-                times, omega, timezone=site.timezone, counts=count
-            )
-            current = (
-                ([], [])
-                if latest is None
-                else omega_at_temperature(site=site, readings=[latest], temperature_c=temperature)
+                times, omegas[number], timezone=site.timezone, counts=count
             )
             now_vs_history = current_against_medians(
-                times=current[0], omega=current[1], best_medians=[
-                    hint.hourly_median[h] for h in hint.best_hours
-                ],
+                times=[] if current is None else current[0],
+                omega=[] if current is None else current[1][number : number + 1],
+                best_medians=[hint.hourly_median[h] for h in hint.best_hours],
             )
             hints.append(
                 {
@@ -715,12 +720,8 @@ def site_status(
         end=window.as_of,
         names=_DAY_ROLLUP_COLUMNS,
     )
-    weeks = rollups.quarters_between(
-        session=session,
-        station_pks=station_pks,
-        start=window.as_of - LOOKBACK,
-        end=window.as_of,
-        names=_WEEK_ROLLUP_COLUMNS,
+    weeks = rollups.minute_masks_between(
+        session=session, station_pks=station_pks, start=window.as_of - LOOKBACK, end=window.as_of
     )
     latest = latest_readings(session=session, station_pks=station_pks, before=window.as_of)
     fed = sorted({t.source_station_pk for t in tanks})
