@@ -30,6 +30,7 @@ caught at flush by :func:`_refresh_after_flush`.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 from collections import defaultdict
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
@@ -42,6 +43,7 @@ from sqlalchemy import (
     Integer,
     Text,
     and_,
+    bindparam,
     case,
     cast,
     delete,
@@ -244,26 +246,39 @@ def refresh_quarters(*, session: Session, station_pk: int, quarters: Iterable[in
             text("SELECT pg_advisory_xact_lock(:namespace, :station)"),
             {"namespace": _PG_LOCK_NAMESPACE, "station": station_pk},
         )
-    table = ReadingRollup.__table__
+    removal, recount = _refresh_statements(dialect)
     for start, end in runs:
-        connection.execute(
-            delete(table).where(
-                table.c.station_pk == station_pk,
-                table.c.quarter_start >= start,
-                table.c.quarter_start < end,
-            )
-        )
-        connection.execute(
-            insert(table).from_select(
-                list(COLUMNS),
-                aggregate_select(
-                    dialect,
-                    Reading.station_pk == station_pk,
-                    Reading.observed_at >= _from_epoch(start),
-                    Reading.observed_at < _from_epoch(end),
-                ),
-            )
-        )
+        values = {
+            "station_pk": station_pk,
+            "first": start,
+            "end": end,
+            "observed_from": _from_epoch(start),
+            "observed_to": _from_epoch(end),
+        }
+        connection.execute(removal, values)
+        connection.execute(recount, values)
+
+
+@functools.lru_cache(maxsize=4)
+def _refresh_statements(dialect: str) -> tuple[Any, Any]:
+    """The DELETE and the INSERT ... SELECT of a station's quarters, built once per dialect
+    (building the aggregate costs more than running it for a quarter)."""
+    table = ReadingRollup.__table__
+    removal = delete(table).where(
+        table.c.station_pk == bindparam("station_pk"),
+        table.c.quarter_start >= bindparam("first"),
+        table.c.quarter_start < bindparam("end"),
+    )
+    recount = insert(table).from_select(
+        list(COLUMNS),
+        aggregate_select(
+            dialect,
+            Reading.station_pk == bindparam("station_pk"),
+            Reading.observed_at >= bindparam("observed_from", type_=Reading.observed_at.type),
+            Reading.observed_at < bindparam("observed_to", type_=Reading.observed_at.type),
+        ),
+    )
+    return removal, recount
 
 
 def refresh_rollups(
@@ -355,14 +370,24 @@ def _pieces(start: dt.datetime, end: dt.datetime) -> tuple[int, int, list[tuple[
     return first, last, [p for p in ((s, first), (last, e)) if p[1] > p[0]]
 
 
-def _partial(dialect: str, station_pks: Sequence[int], lo: float, hi: float) -> Any:
-    """Rollup rows of the readings in [lo, hi) only (a quarter cut by the window)."""
+@functools.lru_cache(maxsize=4)
+def _partial_statement(dialect: str) -> Any:
+    """Rollup rows of the readings of some stations in [lo, hi) only (a quarter cut by the
+    window): a subquery with parameters ``station_pks``, ``lo`` and ``hi``, built once."""
     return aggregate_select(
         dialect,
-        Reading.station_pk.in_(list(station_pks)),
-        Reading.observed_at >= _from_epoch_float(lo),
-        Reading.observed_at < _from_epoch_float(hi),
+        Reading.station_pk.in_(bindparam("station_pks", expanding=True)),
+        Reading.observed_at >= bindparam("lo", type_=Reading.observed_at.type),
+        Reading.observed_at < bindparam("hi", type_=Reading.observed_at.type),
     ).subquery()
+
+
+def _piece_values(station_pks: Sequence[int], lo: float, hi: float) -> dict[str, Any]:
+    return {
+        "station_pks": list(station_pks),
+        "lo": _from_epoch_float(lo),
+        "hi": _from_epoch_float(hi),
+    }
 
 
 def quarters_between(
@@ -397,10 +422,11 @@ def quarters_between(
             )
             .order_by(table.c.station_pk, table.c.quarter_start),
         )
+    partial = _partial_statement(dialect)
     for lo, hi in pieces:
-        partial = _partial(dialect, station_pks, lo, hi)
         rows += connection.execute(
-            select(partial.c.station_pk, *(partial.c[n] for n in names))
+            select(partial.c.station_pk, *(partial.c[n] for n in names)),
+            _piece_values(station_pks, lo, hi),
         ).all()
     columns = list(zip(*rows, strict=True)) if rows else [()] * (len(names) + 1)
     station = np.array(columns[0], dtype=np.int64)
@@ -468,12 +494,13 @@ def totals_between(
             )
             .group_by(table.c.station_pk)
         ).all()
+    partial = _partial_statement(dialect)
     for lo, hi in pieces:
-        partial = _partial(dialect, station_pks, lo, hi)
         rows += connection.execute(
             select(partial.c.station_pk, *(_total(n)(partial.c[n]) for n in names)).group_by(
                 partial.c.station_pk
-            )
+            ),
+            _piece_values(station_pks, lo, hi),
         ).all()
     zero = {n: None if n.endswith(("_min", "_max", "_sum")) else 0 for n in names}
     out: dict[int, dict[str, Any]] = {pk: dict(zero) for pk in station_pks}
