@@ -390,6 +390,16 @@ def _piece_values(station_pks: Sequence[int], lo: float, hi: float) -> dict[str,
     }
 
 
+@functools.lru_cache(maxsize=8)
+def _quarters_statement(names: tuple[str, ...]) -> Any:
+    table = ReadingRollup.__table__
+    return (
+        select(table.c.station_pk, *(table.c[n] for n in names))
+        .where(*_whole_quarters(table))
+        .order_by(table.c.station_pk, table.c.quarter_start)
+    )
+
+
 def quarters_between(
     *,
     session: Session,
@@ -409,18 +419,12 @@ def quarters_between(
     first, last, pieces = _pieces(start, end)
     connection = session.connection()
     dialect = connection.dialect.name
-    table = ReadingRollup.__table__
     rows = []
     if last > first:
         rows = driver_rows(
             connection,
-            select(table.c.station_pk, *(table.c[n] for n in names))
-            .where(
-                table.c.station_pk.in_(list(station_pks)),
-                table.c.quarter_start >= first,
-                table.c.quarter_start < last,
-            )
-            .order_by(table.c.station_pk, table.c.quarter_start),
+            _quarters_statement(names),
+            {"station_pks": list(station_pks), "first": first, "last": last},
         )
     partial = _partial_statement(dialect)
     for lo, hi in pieces:
@@ -445,14 +449,16 @@ def quarters_between(
     return out
 
 
-def driver_rows(connection: Any, statement: Any) -> list[tuple[Any, ...]]:
+def driver_rows(
+    connection: Any, statement: Any, parameters: Mapping[str, Any] | None = None
+) -> list[tuple[Any, ...]]:
     """The rows of ``statement`` as the database driver gives them (plain tuples, no
     result processing: SQLite times stay text).
 
     A week of quarters for six stations is thousands of rows, and a day of readings
     1,500; SQLAlchemy's result rows cost more than the query itself.
     """
-    result = connection.execute(statement)
+    result = connection.execute(statement, parameters)
     try:
         return list(result.cursor.fetchall())
     finally:
@@ -466,6 +472,25 @@ def _total(name: str) -> Any:
     if name.endswith("_max"):
         return func.max
     return func.sum
+
+
+@functools.lru_cache(maxsize=8)
+def _totals_statement(names: tuple[str, ...]) -> Any:
+    table = ReadingRollup.__table__
+    return (
+        select(table.c.station_pk, *(_total(n)(table.c[n]) for n in names))
+        .where(*_whole_quarters(table))
+        .group_by(table.c.station_pk)
+    )
+
+
+def _whole_quarters(table: Any) -> list[Any]:
+    """Rows of stations ``station_pks`` with ``first`` <= quarter_start < ``last``."""
+    return [
+        table.c.station_pk.in_(bindparam("station_pks", expanding=True)),
+        table.c.quarter_start >= bindparam("first"),
+        table.c.quarter_start < bindparam("last"),
+    ]
 
 
 def totals_between(
@@ -482,17 +507,11 @@ def totals_between(
     first, last, pieces = _pieces(start, end)
     connection = session.connection()
     dialect = connection.dialect.name
-    table = ReadingRollup.__table__
     rows = []
     if last > first:
         rows = connection.execute(
-            select(table.c.station_pk, *(_total(n)(table.c[n]) for n in names))
-            .where(
-                table.c.station_pk.in_(list(station_pks)),
-                table.c.quarter_start >= first,
-                table.c.quarter_start < last,
-            )
-            .group_by(table.c.station_pk)
+            _totals_statement(tuple(names)),
+            {"station_pks": list(station_pks), "first": first, "last": last},
         ).all()
     partial = _partial_statement(dialect)
     for lo, hi in pieces:
@@ -530,6 +549,30 @@ def _dtype(name: str) -> Any:
     return np.int64 if isinstance(column.type, (Integer, BigInteger)) else float
 
 
+@functools.lru_cache(maxsize=4)
+def _masks_statement(dialect: str) -> Any:
+    table = ReadingRollup.__table__
+
+    def joined(column: Any) -> Any:
+        if dialect == "postgresql":
+            return func.string_agg(
+                cast(column, Text), aggregate_order_by(literal(","), table.c.quarter_start)
+            )
+        # SQLite: both lists are joined in the same row order (sorted afterwards).
+        return func.group_concat(column)
+
+    return (
+        select(
+            table.c.station_pk,
+            func.sum(table.c.off_minute),
+            joined(table.c.quarter_start),
+            joined(table.c.minute_mask),
+        )
+        .where(*_whole_quarters(table))
+        .group_by(table.c.station_pk)
+    )
+
+
 def minute_masks_between(
     *,
     session: Session,
@@ -546,36 +589,14 @@ def minute_masks_between(
     """
     first, last, pieces = _pieces(start, end)
     connection = session.connection()
-    table = ReadingRollup.__table__
     out: dict[int, tuple[list[np.ndarray], list[np.ndarray], int]] = {
         pk: ([], [], 0) for pk in station_pks
     }
     if last > first:
-        if connection.dialect.name == "postgresql":
-
-            def joined(column: Any) -> Any:
-                return func.string_agg(
-                    cast(column, Text), aggregate_order_by(literal(","), table.c.quarter_start)
-                )
-        else:
-
-            def joined(column: Any) -> Any:
-                return func.group_concat(column)
-
         rows = driver_rows(
             connection,
-            select(
-                table.c.station_pk,
-                func.sum(table.c.off_minute),
-                joined(table.c.quarter_start),
-                joined(table.c.minute_mask),
-            )
-            .where(
-                table.c.station_pk.in_(list(station_pks)),
-                table.c.quarter_start >= first,
-                table.c.quarter_start < last,
-            )
-            .group_by(table.c.station_pk),
+            _masks_statement(connection.dialect.name),
+            {"station_pks": list(station_pks), "first": first, "last": last},
         )
         for pk, off_minute, quarters, masks in rows:
             out[pk] = (
