@@ -7,6 +7,7 @@ the web page and the mail all show the same numbers.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
@@ -14,7 +15,7 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-from sqlalchemy import String, select, type_coerce
+from sqlalchemy import String, bindparam, select, type_coerce
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -114,6 +115,22 @@ def station_columns(
     )[station_pk]
 
 
+@functools.lru_cache(maxsize=16)
+def _columns_query(sqlite: bool, names: tuple[str, ...]) -> Any:
+    """The query of :func:`stations_columns`, built once (parameters ``station_pks``,
+    ``start`` and ``end``)."""
+    observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
+    return (
+        select(Reading.station_pk, observed, *(getattr(Reading, name) for name in names))
+        .where(
+            Reading.station_pk.in_(bindparam("station_pks", expanding=True)),
+            Reading.observed_at >= bindparam("start", type_=Reading.observed_at.type),
+            Reading.observed_at < bindparam("end", type_=Reading.observed_at.type),
+        )
+        .order_by(Reading.station_pk, Reading.observed_at, Reading.id)
+    )
+
+
 def stations_columns(
     *,
     session: Session,
@@ -124,17 +141,11 @@ def stations_columns(
 ) -> dict[int, dict[str, np.ndarray]]:
     """:func:`station_columns` of several stations in one query, by station."""
     sqlite = session.get_bind().dialect.name == "sqlite"
-    observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
-    query = (
-        select(Reading.station_pk, observed, *(getattr(Reading, name) for name in names))
-        .where(
-            Reading.station_pk.in_(list(station_pks)),
-            Reading.observed_at >= start,
-            Reading.observed_at < end,
-        )
-        .order_by(Reading.station_pk, Reading.observed_at, Reading.id)
+    rows = rollups.driver_rows(
+        session.connection(),
+        _columns_query(sqlite, tuple(names)),
+        {"station_pks": list(station_pks), "start": start, "end": end},
     )
-    rows = rollups.driver_rows(session.connection(), query)
     columns: list[Sequence[Any]] = (
         list(zip(*rows, strict=True)) if rows else [() for _ in range(len(names) + 2)]
     )
