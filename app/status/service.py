@@ -3,6 +3,12 @@
 The figures come from :mod:`app.status.compute` (pure), the tank predictions from
 :mod:`app.alerts.advice` (the same code that drives alerts and dose advice), so the API,
 the web page and the mail all show the same numbers.
+
+Station figures and the fill-window hint read the quarter-hour rollups of
+:mod:`app.status.rollups` (a few thousand small rows instead of a week of readings per
+station); each tank's day still reads its source station's readings of that day, since
+minutes below the floor follow every reading. What changed in the figures' definitions is
+said at :func:`station_status` and :func:`fill_window_hints` (and in DEVELOPERS.md).
 """
 
 from __future__ import annotations
