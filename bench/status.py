@@ -4,9 +4,9 @@ Fixture: one site, 6 stations (one intake, five tank supplies) and 2 tanks fed b
 intake and by the second station, with a year (``--quick``: a month) of one-minute
 readings per station ending now: 3.15 million rows, derived chemistry included, written
 with plain SQL inserts into the migrated schema, then its quarter-hour rollups
-(``reading_rollups``) with the app's aggregate, as the ingest keeps them. It is cached under ``var/bench/`` keyed
-by the schema revision, the size and the day it was made (the chart shows the last 7
-days from now, so a fixture from an earlier day is made again).
+(``reading_rollups``) with the app's aggregate, as the ingest keeps them. It is cached
+under ``var/bench/`` keyed by the schema revision, the size and the day it was made (the
+chart shows the last 7 days from now, so a fixture from an earlier day is made again).
 
 Timed, against one ``spatline serve`` process on the cached file, each the median of
 several runs:
