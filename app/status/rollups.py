@@ -309,7 +309,8 @@ def refresh_rollups(
 
 def rebuild(*, session: Session, station_pks: Sequence[int] | None = None) -> None:
     """Recompute every rollup row (of these stations) from the readings: for fixtures and
-    for repairs; the migration that made the table did the same."""
+    for repairs; the migration that made the table did the same. It takes no per-station
+    lock, so run it while nothing ingests (a repair, a fixture), not beside the service."""
     connection = session.connection()
     table = ReadingRollup.__table__
     conditions = [] if station_pks is None else [Reading.station_pk.in_(list(station_pks))]
