@@ -10,6 +10,7 @@ from app.db import Base
 from app.readings.models import Reading
 from app.samples.models import LabSample
 from app.sites.models import Device, Site, Station, Tank
+from app.status.rollups import ReadingRollup
 
 __all__ = [
     "Alert",
@@ -22,6 +23,7 @@ __all__ = [
     "LarvalBatch",
     "OutboxMessage",
     "Reading",
+    "ReadingRollup",
     "Site",
     "Station",
     "Tank",

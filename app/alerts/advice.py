@@ -133,6 +133,7 @@ def predict_tank_water(
     alkalinity: Any,
     u_alkalinity: Any = 0.0,
     with_uncertainty: bool = True,
+    dic: Any = None,
 ) -> TankPrediction:
     """Omega aragonite of source water carried to the tank's culture temperature.
 
@@ -144,7 +145,9 @@ def predict_tank_water(
     dominated by pH and the solubility product, which the dose does not change.
     ``with_uncertainty=False`` leaves the uncertainties NaN for callers that need the
     values only (a day's series for minutes below the floor): the budget costs several
-    solves more.
+    solves more. ``dic`` (umol/kg, the stored DIC derived from the same pH and alkalinity)
+    lets the water be solved at the culture temperature from alkalinity and DIC at once,
+    one solve instead of two: the same closed-system water.
     """
     culture = float(tank.culture_temperature_c)
     inputs = dict(
@@ -155,8 +158,16 @@ def predict_tank_water(
         ph_scale="total",
         carbonic=site.carbonic_constants,
     )
-    in_situ = chemistry.solve(**inputs)
-    in_tank = chemistry.at_temperature(in_situ, culture)
+    if dic is None:
+        in_tank = chemistry.at_temperature(chemistry.solve(**inputs), culture)
+    else:
+        in_tank = chemistry.solve(
+            temperature=culture,
+            salinity=inputs["salinity"],
+            alkalinity=inputs["alkalinity"],
+            dic=np.asarray(dic, dtype=float),
+            carbonic=site.carbonic_constants,
+        )
     omega = np.asarray(in_tank.omega_aragonite, dtype=float)
     if with_uncertainty:
         uncertainty = chemistry.standard_uncertainty(

@@ -50,6 +50,7 @@ from app.readings.qc import (
 )
 from app.readings.schemas import ReadingIn, RejectedItem, validate_readings
 from app.sites.models import Site, Station
+from app.status.rollups import refresh_rollups
 
 logger = logging.getLogger(__name__)
 
@@ -857,6 +858,7 @@ def ingest_readings(
     if neighbour_changes:
         for chunk in _chunks(neighbour_changes):
             session.execute(update(Reading), list(chunk))
+    refresh_rollups(session, station_pk=station.pk, inserted=inserted, changed=neighbour_changes)
     result.accepted = len(inserted)
     result.stored_ids = sorted(inserted.values())
     result.rejected.sort(key=lambda item: item.index)

@@ -333,6 +333,32 @@ def qc_counts(flags: Iterable[int | None]) -> dict[str, int]:
     return counts
 
 
+def _local_hours(seconds: np.ndarray, zone: ZoneInfo) -> np.ndarray:
+    """Local clock hour of each UTC time (seconds since 1970), for times on quarter hours.
+
+    The zone's offset is looked up at the start and end of each UTC day; where the two
+    agree the whole day has that offset (zones change offset at most once a day), and
+    only a day with a change is looked up time by time.
+    """
+    if seconds.size == 0:
+        return np.empty(0, dtype=np.int64)
+    day = np.floor(seconds / 86400.0)
+    offsets = np.empty(seconds.shape)
+    for d in np.unique(day):
+        in_day = day == d
+        at_start, at_end = (
+            datetime.fromtimestamp(x, tz=zone).utcoffset() for x in (d * 86400.0, (d + 1) * 86400.0)
+        )
+        if at_start == at_end and at_start is not None:
+            offsets[in_day] = at_start.total_seconds()
+        else:
+            offsets[in_day] = [
+                datetime.fromtimestamp(x, tz=zone).utcoffset().total_seconds()  # type: ignore[union-attr]
+                for x in seconds[in_day]
+            ]
+    return (np.floor((seconds + offsets) / 3600.0) % 24).astype(np.int64)
+
+
 @dataclass(frozen=True)
 class FillWindowHint:
     """When in the local day intake water has been best for filling.
@@ -361,6 +387,7 @@ def fill_window_hint(
     timezone: str,
     best: int = 3,
     min_count: int = 1,
+    counts: Sequence[int] | np.ndarray | None = None,
 ) -> FillWindowHint:
     """Median per site-local hour of day, and the hours with the highest medians.
 
@@ -371,6 +398,8 @@ def fill_window_hint(
     timezone : IANA name of the site's zone; hours are local clock hours
     best : how many hours to name
     min_count : hours with fewer values than this are left out of ``best_hours``
+    counts : when each value stands for several readings (a quarter hour's mean), how
+        many; ``hourly_count`` and ``min_count`` then count readings. Default: one each.
     """
     if best < 1:
         raise StatusInputError("best: must be at least 1")
@@ -382,27 +411,28 @@ def fill_window_hint(
     v = np.asarray(values, dtype=float)
     if t.shape != v.shape:
         raise StatusInputError("times and values must have equal length")
+    n = np.ones(v.shape, dtype=np.int64) if counts is None else np.asarray(counts, np.int64)
+    if n.shape != v.shape:
+        raise StatusInputError("counts and values must have equal length")
     keep = np.isfinite(v)
-    t, v = t[keep], v[keep]
+    t, v, n = t[keep], v[keep], n[keep]
     # Every UTC offset in use today is a whole number of quarter hours and changes on a quarter
-    # hour, so the local hour is constant within each UTC quarter hour: look up each
-    # quarter once (a week has 672) instead of every reading.
+    # hour, so the local hour is constant within each UTC quarter hour: work it out per
+    # quarter (a week has 672) instead of per reading.
     quarters, position = np.unique(np.floor(t / 900.0), return_inverse=True)
-    quarter_hours = np.array(
-        [datetime.fromtimestamp(q * 900.0, tz=zone).hour for q in quarters], dtype=np.int64
-    )
+    quarter_hours = _local_hours(quarters * 900.0, zone)
     hours = quarter_hours[position.reshape(-1)] if t.size else np.empty(0, dtype=np.int64)
     medians: list[float | None] = []
-    counts: list[int] = []
+    hourly_count: list[int] = []
     for hour in range(24):
-        in_hour = v[hours == hour]
-        counts.append(int(in_hour.size))
-        medians.append(float(np.median(in_hour)) if in_hour.size else None)
+        in_hour = hours == hour
+        hourly_count.append(int(n[in_hour].sum()))
+        medians.append(float(np.median(v[in_hour])) if np.any(in_hour) else None)
     ranked = sorted(
-        (h for h in range(24) if medians[h] is not None and counts[h] >= min_count),
+        (h for h in range(24) if medians[h] is not None and hourly_count[h] >= min_count),
         key=lambda h: (-medians[h], h),  # type: ignore[operator]
     )
-    return FillWindowHint(medians, counts, ranked[:best])
+    return FillWindowHint(medians, hourly_count, ranked[:best])
 
 
 @dataclass(frozen=True)

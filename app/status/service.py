@@ -3,10 +3,17 @@
 The figures come from :mod:`app.status.compute` (pure), the tank predictions from
 :mod:`app.alerts.advice` (the same code that drives alerts and dose advice), so the API,
 the web page and the mail all show the same numbers.
+
+Station figures and the fill-window hint read the quarter-hour rollups of
+:mod:`app.status.rollups` (a few thousand small rows instead of a week of readings per
+station); each tank's day still reads its source station's readings of that day, since
+minutes below the floor follow every reading. What changed in the figures' definitions is
+said at :func:`station_status` and :func:`fill_window_hints` (and in DEVELOPERS.md).
 """
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
@@ -14,7 +21,7 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-from sqlalchemy import String, select, type_coerce
+from sqlalchemy import String, bindparam, select, type_coerce
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -29,7 +36,7 @@ from app.alerts.models import Alert, AlertRule
 from app.alerts.state_machine import OPEN_ALERT_STATES
 from app.readings.models import Reading
 from app.sites.models import Site, Station, Tank
-from app.status import compute
+from app.status import compute, rollups
 
 QC_FAIL = 4
 
@@ -106,48 +113,86 @@ def station_columns(
 
     ``observed_at`` comes as naive UTC ``datetime64[us]`` (what :mod:`app.status.compute`
     takes), flags as integers, numbers as floats with NaN for null, text as objects. The
-    status reads a week of rows per station: plain rows turned into arrays in bulk cost a
-    fraction of ORM objects (and, on SQLite, numpy parses the stored time text in C).
+    status reads a day of rows per tank: the driver's plain rows turned into arrays in bulk
+    cost a fraction of ORM objects (and, on SQLite, numpy parses the stored time text in C).
     """
-    sqlite = session.get_bind().dialect.name == "sqlite"
+    return stations_columns(
+        session=session, station_pks=[station_pk], start=start, end=end, names=names
+    )[station_pk]
+
+
+@functools.lru_cache(maxsize=16)
+def _columns_query(sqlite: bool, names: tuple[str, ...]) -> Any:
+    """The query of :func:`stations_columns`, built once (parameters ``station_pks``,
+    ``start`` and ``end``)."""
     observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
-    query = (
-        select(observed, *(getattr(Reading, name) for name in names))
+    return (
+        select(Reading.station_pk, observed, *(getattr(Reading, name) for name in names))
         .where(
-            Reading.station_pk == station_pk,
-            Reading.observed_at >= start,
-            Reading.observed_at < end,
+            Reading.station_pk.in_(bindparam("station_pks", expanding=True)),
+            Reading.observed_at >= bindparam("start", type_=Reading.observed_at.type),
+            Reading.observed_at < bindparam("end", type_=Reading.observed_at.type),
         )
-        .order_by(Reading.observed_at, Reading.id)
+        .order_by(Reading.station_pk, Reading.observed_at, Reading.id)
     )
-    rows = session.connection().execute(query).all()
+
+
+def stations_columns(
+    *,
+    session: Session,
+    station_pks: Sequence[int],
+    start: datetime,
+    end: datetime,
+    names: Sequence[str] = (),
+) -> dict[int, dict[str, np.ndarray]]:
+    """:func:`station_columns` of several stations in one query, by station."""
+    sqlite = session.get_bind().dialect.name == "sqlite"
+    rows = rollups.driver_rows(
+        session.connection(),
+        _columns_query(sqlite, tuple(names)),
+        {"station_pks": list(station_pks), "start": start, "end": end},
+    )
     columns: list[Sequence[Any]] = (
-        list(zip(*rows, strict=True)) if rows else [() for _ in range(len(names) + 1)]
+        list(zip(*rows, strict=True)) if rows else [() for _ in range(len(names) + 2)]
     )
     if sqlite:
-        times = np.array(columns[0], dtype="datetime64[us]")
+        times = np.array(columns[1], dtype="datetime64[us]")
     else:
         times = np.array(
-            [t.astimezone(UTC).replace(tzinfo=None) for t in columns[0]], dtype="datetime64[us]"
+            [t.astimezone(UTC).replace(tzinfo=None) for t in columns[1]], dtype="datetime64[us]"
         )
-    out: dict[str, np.ndarray] = {"observed_at": times}
-    for name, values in zip(names, columns[1:], strict=True):
+    arrays: dict[str, np.ndarray] = {"observed_at": times}
+    for name, values in zip(names, columns[2:], strict=True):
         if name in _FLAG_COLUMNS:
-            out[name] = np.array(values, dtype=np.int64)
+            arrays[name] = np.array(values, dtype=np.int64)
         elif isinstance(getattr(Reading, name).type, String):
-            out[name] = np.array(values, dtype=object)
+            arrays[name] = np.array(values, dtype=object)
         else:
-            out[name] = np.array(values, dtype=float)  # None becomes NaN
+            arrays[name] = np.array(values, dtype=float)  # None becomes NaN
+    station = np.array(columns[0], dtype=np.int64)
+    out = {}
+    for pk in station_pks:
+        lo, hi = np.searchsorted(station, pk, "left"), np.searchsorted(station, pk, "right")
+        out[pk] = {name: values[lo:hi] for name, values in arrays.items()}
     return out
 
 
-def latest_reading(*, session: Session, station_pk: int, before: datetime) -> Reading | None:
-    return session.scalars(
-        select(Reading)
-        .where(Reading.station_pk == station_pk, Reading.observed_at < before)
+def latest_readings(
+    *, session: Session, station_pks: Sequence[int], before: datetime
+) -> dict[int, Reading]:
+    """Each station's newest reading before ``before`` (stations without one are left out),
+    in one query: a scalar sub-select per station picks the id from the time index."""
+    if not station_pks:
+        return {}
+    ids = [
+        select(Reading.id)
+        .where(Reading.station_pk == pk, Reading.observed_at < before)
         .order_by(Reading.observed_at.desc(), Reading.id.desc())
         .limit(1)
-    ).first()
+        .scalar_subquery()
+        for pk in station_pks
+    ]
+    return {r.station_pk: r for r in session.scalars(select(Reading).where(Reading.id.in_(ids)))}
 
 
 def open_alerts(*, session: Session, site_id: str) -> list[tuple[Alert, AlertRule]]:
@@ -216,10 +261,12 @@ def tank_prediction_series(
 def _tank_series_from_columns(
     *, site: Site, tank: Tank, station: Station, columns: dict[str, np.ndarray]
 ) -> TankSeries:
-    """:func:`tank_prediction_series` over columns from :func:`station_columns`."""
+    """:func:`tank_prediction_series` over columns from :func:`station_columns` (with the
+    stored DIC, when read and present for every good reading, for one solve)."""
     good = _good_mask(columns)
     if not np.any(good):
         return TankSeries([], np.empty(0), None)
+    dic = columns["dic_umol_kg"][good] if "dic_umol_kg" in columns else None
     prediction = predict_tank_water(
         site=site,
         tank=tank,
@@ -229,6 +276,7 @@ def _tank_series_from_columns(
         ph_total=columns["ph_total"][good],
         alkalinity=columns["alkalinity_used_umol_kg"][good],
         with_uncertainty=False,  # the series carries values only
+        dic=dic if dic is not None and np.all(np.isfinite(dic)) else None,
     )
     return _series(good_times=columns["observed_at"][good], prediction=prediction)
 
@@ -245,11 +293,12 @@ def _series(*, good_times: Any, prediction: Any) -> TankSeries:
 
 
 def omega_at_temperature(
-    *, site: Site, readings: Sequence[Reading], temperature_c: float
+    *, site: Site, readings: Sequence[Reading], temperature_c: float | Sequence[float]
 ) -> tuple[list[datetime], np.ndarray]:
     """Omega aragonite of each good reading's water carried to ``temperature_c`` (closed).
 
     Without the uncertainty budget: the fill-window hint and the chart need the values only.
+    With one reading, ``temperature_c`` may be several temperatures (one value each).
     """
     good = _good(readings)
     if not good:
@@ -262,7 +311,7 @@ def omega_at_temperature(
         ph_scale="total",
         carbonic=site.carbonic_constants,
     )
-    carried = chemistry.at_temperature(state, float(temperature_c))
+    carried = chemistry.at_temperature(state, np.asarray(temperature_c, dtype=float))
     return [r.observed_at for r in good], np.atleast_1d(
         np.asarray(carried.omega_aragonite, dtype=float)
     )
@@ -270,6 +319,9 @@ def omega_at_temperature(
 
 #: What a reading needs to count as good and to be carried to another temperature.
 _GOOD_COLUMNS = ("qc_overall", "ph_total", "alkalinity_used_umol_kg", "temperature_c", "salinity")
+#: What a tank's day reads of its source station's readings (the stored DIC carries the
+#: water to the culture temperature in one solve).
+_TANK_DAY_COLUMNS = (*_GOOD_COLUMNS, "dic_umol_kg")
 
 
 def _good_mask(columns: dict[str, np.ndarray]) -> np.ndarray:
@@ -277,24 +329,6 @@ def _good_mask(columns: dict[str, np.ndarray]) -> np.ndarray:
     return (columns["qc_overall"] != QC_FAIL) & np.all(
         [np.isfinite(columns[name]) for name in _GOOD_COLUMNS[1:]], axis=0
     )
-
-
-def _omega_columns_at_temperature(
-    *, site: Site, columns: dict[str, np.ndarray], good: np.ndarray, temperature_c: float
-) -> np.ndarray:
-    """:func:`omega_at_temperature` over columns: omega of each good reading's water."""
-    if not np.any(good):
-        return np.empty(0)
-    state = chemistry.solve(
-        temperature=columns["temperature_c"][good],
-        salinity=columns["salinity"][good],
-        ph=columns["ph_total"][good],
-        alkalinity=columns["alkalinity_used_umol_kg"][good],
-        ph_scale="total",
-        carbonic=site.carbonic_constants,
-    )
-    carried = chemistry.at_temperature(state, float(temperature_c))
-    return np.atleast_1d(np.asarray(carried.omega_aragonite, dtype=float))
 
 
 # --------------------------------------------------------------------------------------
@@ -316,42 +350,82 @@ def _reading_summary(reading: Reading, as_of: datetime) -> dict[str, Any]:
     }
 
 
+def _day_figures(totals: dict[str, Any]) -> dict[str, Any]:
+    """Per variable: min, per-reading mean and max from the day's rollup totals."""
+    figures = {}
+    for name in DAY_VARIABLES:
+        count = int(totals[f"{name}_n"])
+        if count == 0:
+            figures[name] = compute.DayRange(None, None, None, 0).as_dict()
+            continue
+        figures[name] = compute.DayRange(
+            float(totals[f"{name}_min"]),
+            float(totals[f"{name}_sum"]) / count,
+            float(totals[f"{name}_max"]),
+            count,
+        ).as_dict()
+    return figures
+
+
+#: Rollup columns the station figures add up over the day.
+_DAY_ROLLUP_COLUMNS = (
+    "readings",
+    *rollups.QC_FLAG_COLUMNS.values(),
+    *(f"{name}_{part}" for name in DAY_VARIABLES for part in ("n", "min", "max", "sum")),
+)
+
+
 def station_status(
-    *, session: Session, station: Station, window: DayWindow, max_gap: timedelta
+    *,
+    session: Session,
+    station: Station,
+    window: DayWindow,
+    day: dict[str, Any],
+    week: tuple[np.ndarray, np.ndarray, int],
+    latest: Reading | None,
 ) -> dict[str, Any]:
-    day = station_columns(
-        session=session,
-        station_pk=station.pk,
-        start=window.start,
-        end=window.as_of,
-        names=("qc_overall", *DAY_VARIABLES),
-    )
-    usable = day["qc_overall"] != QC_FAIL
-    history = station_columns(
-        session=session,
-        station_pk=station.pk,
-        start=window.as_of - LOOKBACK,
-        end=window.as_of,
-    )["observed_at"]
+    """A station's day from its quarter-hour rollups (``day``: the day's totals from
+    :func:`app.status.rollups.totals_between`; ``week``: the look-back's quarter starts,
+    minute masks and off-minute count from :func:`app.status.rollups.minute_masks_between`).
+
+    The usual sampling interval (median spacing of the week's distinct reading times) and
+    the completeness need reading times. When every reading of the week is on a whole
+    minute, the rollups' occupied minutes are exactly those times; otherwise (seconds in
+    the times, sub-minute sampling) the times are read from the readings as before.
+    """
+    quarter_start, minute_mask, off_minute = week
+    if off_minute == 0:
+        history = rollups.occupied_minutes(quarter_start, minute_mask)
+    else:
+        history = station_columns(
+            session=session,
+            station_pk=station.pk,
+            start=window.as_of - LOOKBACK,
+            end=window.as_of,
+        )["observed_at"]
+    # The day lies inside the look-back week (both end at as_of).
+    day_times = history[history >= np.datetime64(window.start.replace(tzinfo=None), "us")]
     inferred = compute.infer_sampling_interval(history)
     interval = inferred or FALLBACK_SAMPLING_INTERVAL
-    latest = latest_reading(session=session, station_pk=station.pk, before=window.as_of)
     return {
         "station_id": station.id,
         "name": station.name,
         "role": station.role,
         "latest_reading": None if latest is None else _reading_summary(latest, window.as_of),
-        "day": {name: compute.day_range(day[name][usable]).as_dict() for name in DAY_VARIABLES},
-        "readings": int(day["observed_at"].size),
+        "day": _day_figures(day),
+        "readings": int(day["readings"]),
         "expected_interval_minutes": interval.total_seconds() / 60.0,
         "expected_interval_inferred": inferred is not None,
         "completeness_percent": compute.completeness_percent(
-            day["observed_at"],
+            day_times,
             start=window.start,
             end=window.as_of,
             expected_interval=interval,
         ),
-        "qc_counts": compute.qc_counts(day["qc_overall"].tolist()),
+        "qc_counts": {
+            compute.QC_FLAG_NAMES[flag]: int(day[column])
+            for flag, column in rollups.QC_FLAG_COLUMNS.items()
+        },
     }
 
 
@@ -373,16 +447,22 @@ def tank_status(
     window: DayWindow,
     alerts: Sequence[tuple[Alert, AlertRule]],
     max_gap: timedelta,
+    readings: dict[str, np.ndarray] | None = None,
+    latest_good: Reading | bool | None = False,
 ) -> dict[str, Any]:
+    """A tank's day. ``readings``: its source station's columns from ``window.start -
+    max_gap`` to ``window.as_of + max_gap`` (read here when not given); ``latest_good``:
+    the station's latest good reading before ``window.as_of`` (looked up when ``False``)."""
     station = tank.source_station
-    # One reading either side of the day so that pieces crossing midnight are counted.
-    readings = station_columns(
-        session=session,
-        station_pk=station.pk,
-        start=window.start - max_gap,
-        end=window.as_of + max_gap,
-        names=_GOOD_COLUMNS,
-    )
+    if readings is None:
+        # One reading either side of the day so that pieces crossing midnight are counted.
+        readings = station_columns(
+            session=session,
+            station_pk=station.pk,
+            start=window.start - max_gap,
+            end=window.as_of + max_gap,
+            names=_TANK_DAY_COLUMNS,
+        )
     series = _tank_series_from_columns(site=site, tank=tank, station=station, columns=readings)
     floor = float(tank.omega_floor)
     span = {"start": window.start, "end": window.as_of, "max_gap": max_gap}
@@ -390,7 +470,11 @@ def tank_status(
     covered = compute.covered_minutes(series.times, series.larvae_omega, **span)
     minutes_untreated = compute.minutes_below(series.times, series.omega, floor, **span)
 
-    reading = latest_good_reading(session=session, station_pk=station.pk, before=window.as_of)
+    reading = (
+        latest_good_reading(session=session, station_pk=station.pk, before=window.as_of)
+        if latest_good is False
+        else latest_good
+    )
     advice = None
     if reading is not None:
         advice = tank_advice(
@@ -448,6 +532,41 @@ def tank_status(
     }
 
 
+def _quarter_omega_at_temperatures(
+    *, site: Site, week: dict[str, np.ndarray], filled: np.ndarray, temperatures: Sequence[float]
+) -> np.ndarray:
+    """Omega aragonite of each quarter hour's mean water carried to each temperature (one
+    row per temperature, one solve for all).
+
+    The mean water is the mean alkalinity, DIC and salinity of the quarter's good readings
+    (stored at ingest); alkalinity and DIC do not change on heating in a closed system, so
+    this is the water at the tank's temperature.
+    """
+    if not np.any(filled) or not temperatures:
+        return np.empty((len(temperatures), 0))
+    good = week["good"][filled]
+    state = chemistry.solve(
+        temperature=np.asarray(temperatures, dtype=float)[:, None],
+        salinity=week["good_salinity_sum"][filled] / good,
+        alkalinity=week["good_alkalinity_sum"][filled] / good,
+        dic=week["good_dic_sum"][filled] / good,
+        carbonic=site.carbonic_constants,
+    )
+    return np.broadcast_to(
+        np.asarray(state.omega_aragonite, dtype=float), (len(temperatures), int(good.size))
+    )
+
+
+def _fill_sources(stations: Sequence[Station], tanks: Sequence[Tank]) -> list[Station]:
+    """The stations the fill-window hint is about: the intakes, or without one the
+    stations that feed the tanks."""
+    sources = [s for s in stations if s.role == "intake"]
+    if not sources:
+        fed = {t.source_station_pk for t in tanks}
+        sources = [s for s in stations if s.pk in fed]
+    return sources
+
+
 def fill_window_hints(
     *,
     session: Session,
@@ -455,38 +574,59 @@ def fill_window_hints(
     stations: Sequence[Station],
     tanks: Sequence[Tank],
     window: DayWindow,
+    latest_good: dict[int, Reading | None] | None = None,
 ) -> list[dict[str, Any]]:
     """Per intake station and tank temperature: best local hours over the last 7 days.
 
     Intake stations are the ones the hint is about (water taken in to fill); a site
     without one falls back to the stations that feed its tanks.
+
+    From the quarter-hour rollups: each quarter hour's mean water (good readings only) is
+    carried to the tank temperature, and ``hourly_median[h]`` is the median of those
+    quarter-hour values in local hour ``h`` over the week (before the rollups it was the
+    median of every reading's value; for a station sampling every 15 minutes or slower
+    the two are the same). ``hourly_count`` still counts the good readings behind each
+    hour. The current value is the latest good reading's own, as before.
     """
-    sources = [s for s in stations if s.role == "intake"]
-    if not sources:
-        fed = {t.source_station_pk for t in tanks}
-        sources = [s for s in stations if s.pk in fed]
+    sources = _fill_sources(stations, tanks)
     temperatures = sorted({float(t.culture_temperature_c) for t in tanks})
+    weeks = rollups.quarters_between(
+        session=session,
+        station_pks=[s.pk for s in sources],
+        start=window.as_of - LOOKBACK,
+        end=window.as_of,
+        names=("good", *rollups.GOOD_SUMS),
+    )
     hints = []
     for station in sources:
-        week = station_columns(
-            session=session,
-            station_pk=station.pk,
-            start=window.as_of - LOOKBACK,
-            end=window.as_of,
-            names=_GOOD_COLUMNS,
+        week = weeks[station.pk]
+        filled = week["good"] > 0
+        count = week["good"][filled]
+        times = week["quarter_start"][filled].astype("datetime64[s]").astype("datetime64[us]")
+        latest = (
+            latest_good_reading(session=session, station_pk=station.pk, before=window.as_of)
+            if latest_good is None
+            else latest_good[station.pk]
         )
-        good = _good_mask(week)
-        for temperature in temperatures:
-            omega = _omega_columns_at_temperature(
-                site=site, columns=week, good=good, temperature_c=temperature
-            )
+        if latest is not None and latest.observed_at < window.as_of - LOOKBACK:
+            latest = None
+        omegas = _quarter_omega_at_temperatures(
+            site=site, week=week, filled=filled, temperatures=temperatures
+        )
+        # The latest good reading's own water at every temperature, in one solve.
+        current = (
+            None
+            if latest is None
+            else omega_at_temperature(site=site, readings=[latest], temperature_c=temperatures)
+        )
+        for number, temperature in enumerate(temperatures):
             hint = compute.fill_window_hint(
-                week["observed_at"][good], omega, timezone=site.timezone
+                times, omegas[number], timezone=site.timezone, counts=count
             )
             now_vs_history = current_against_medians(
-                times=week["observed_at"][good], omega=omega, best_medians=[
-                    hint.hourly_median[h] for h in hint.best_hours
-                ],
+                times=[] if current is None else current[0],
+                omega=[] if current is None else current[1][number : number + 1],
+                best_medians=[hint.hourly_median[h] for h in hint.best_hours],
             )
             hints.append(
                 {
@@ -589,6 +729,32 @@ def site_status(
     alerts = open_alerts(session=session, site_id=site.id)
     tanks_by_pk = {t.pk: t for t in tanks}
     stations_by_pk = {s.pk: s for s in stations}
+    station_pks = [s.pk for s in stations]
+    days = rollups.totals_between(
+        session=session,
+        station_pks=station_pks,
+        start=window.start,
+        end=window.as_of,
+        names=_DAY_ROLLUP_COLUMNS,
+    )
+    weeks = rollups.minute_masks_between(
+        session=session, station_pks=station_pks, start=window.as_of - LOOKBACK, end=window.as_of
+    )
+    latest = latest_readings(session=session, station_pks=station_pks, before=window.as_of)
+    fed = sorted({t.source_station_pk for t in tanks})
+    # One reading either side of the day so that pieces crossing midnight are counted.
+    tank_days = stations_columns(
+        session=session,
+        station_pks=fed,
+        start=window.start - max_gap,
+        end=window.as_of + max_gap,
+        names=_TANK_DAY_COLUMNS,
+    )
+    latest_good: dict[int, Reading | None] = {}
+    for pk in sorted({*fed, *(s.pk for s in _fill_sources(stations, tanks))}):
+        latest_good[pk] = latest_good_reading(
+            session=session, station_pk=pk, before=window.as_of
+        )
     return {
         "site_id": site.id,
         "site_name": site.name,
@@ -600,19 +766,28 @@ def site_status(
         "day_complete": window.is_complete,
         "max_gap_minutes": max_gap.total_seconds() / 60.0,
         "stations": [
-            station_status(session=session, station=s, window=window, max_gap=max_gap)
+            station_status(
+                session=session,
+                station=s,
+                window=window,
+                day=days[s.pk],
+                week=weeks[s.pk],
+                latest=latest.get(s.pk),
+            )
             for s in stations
         ],
         "tanks": [
             tank_status(
                 session=session, site=site, tank=t, window=window, alerts=alerts,
-                max_gap=max_gap,
+                max_gap=max_gap, readings=tank_days[t.source_station_pk],
+                latest_good=latest_good[t.source_station_pk],
             )
             for t in tanks
         ],
         "open_alerts": [alert_summary(a, r, tanks_by_pk, stations_by_pk) for a, r in alerts],
         "fill_window": fill_window_hints(
-            session=session, site=site, stations=stations, tanks=tanks, window=window
+            session=session, site=site, stations=stations, tanks=tanks, window=window,
+            latest_good=latest_good,
         ),
         "chemistry_version": chemistry.CHEMISTRY_VERSION,
         "caution": chemistry.DOSING_CAUTION,

@@ -207,3 +207,22 @@ def test_batch_exposure_without_data_says_so():
         batch_exposure([], [], started_at=T0, ended_at=T0, floor=0.0)
     with pytest.raises(StatusInputError, match="ended_at"):
         batch_exposure([], [], started_at=T0, ended_at=T0 - timedelta(hours=1), floor=1.5)
+
+
+@pytest.mark.parametrize(
+    "zone",
+    # A spring-forward and a fall-back week, a half-hour zone with daylight saving and a
+    # 45-minute zone (offsets from the IANA tz database that zoneinfo reads).
+    ["America/Los_Angeles", "Australia/Adelaide", "Asia/Kathmandu", "UTC"],
+)
+@pytest.mark.parametrize("first_day", [date(2026, 3, 5), date(2026, 10, 29)])
+def test_local_hours_match_the_time_zone_database(zone, first_day):
+    """The day-at-a-time offset look-up gives each quarter's clock hour as zoneinfo does."""
+    from zoneinfo import ZoneInfo
+
+    from app.status.compute import _local_hours
+
+    start = datetime.combine(first_day, datetime.min.time(), tzinfo=UTC).timestamp()
+    quarters = start + 900.0 * np.arange(4 * 24 * 10)
+    expected = [datetime.fromtimestamp(q, tz=ZoneInfo(zone)).hour for q in quarters]
+    assert _local_hours(quarters, ZoneInfo(zone)).tolist() == expected
