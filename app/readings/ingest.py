@@ -18,6 +18,7 @@ import datetime as dt
 import functools
 import logging
 import math
+from collections import namedtuple
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import SimpleNamespace
@@ -48,7 +49,7 @@ from app.readings.qc import (
     limits_with_overrides,
     run_qc,
 )
-from app.readings.schemas import ReadingIn, RejectedItem, validate_readings
+from app.readings.schemas import CheckedReading, ReadingIn, RejectedItem, validate_readings
 from app.sites.models import Site, Station
 
 logger = logging.getLogger(__name__)
@@ -105,10 +106,10 @@ class IngestResult:
         self.rejected.append(RejectedItem(index=index, errors=errors))
 
 
-@dataclass
+@dataclass(slots=True)
 class _Candidate:
     index: int
-    reading: ReadingIn
+    reading: ReadingIn | CheckedReading
     alkalinity_input: float | None = None
 
     @property
@@ -148,6 +149,10 @@ _MATCH_COLUMNS = (
 )
 
 
+# A stored match found on SQLite's own cursor, with the attributes of a Core row.
+_Match = namedtuple("_Match", [column.key for column in _MATCH_COLUMNS])
+
+
 def _stored_matches(
     session: Session, *, station_pk: int, source: str, candidates: Sequence[_Candidate]
 ) -> list[Any]:
@@ -168,6 +173,16 @@ def _stored_matches(
     # that turns out to be crowded (a backfill between stored readings) is looked up
     # time by time instead.
     crowded = 2 * len(candidates) + 100
+    connection = session.connection()
+    if connection.dialect.name == "sqlite":
+        return _sqlite_matches(
+            connection,
+            station_pk=station_pk,
+            source=source,
+            times=times,
+            ids=ids,
+            crowded=crowded,
+        )
     in_span = session.execute(
         select(*_MATCH_COLUMNS)
         .where(*this_sensor, Reading.observed_at >= min(times), Reading.observed_at <= max(times))
@@ -191,6 +206,67 @@ def _stored_matches(
         )
     unique = {row.id: row for row in rows}
     return list(unique.values())
+
+
+def _sqlite_matches(
+    connection: Connection,
+    *,
+    station_pk: int,
+    source: str,
+    times: Sequence[dt.datetime],
+    ids: Sequence[str],
+    crowded: int,
+) -> list[Any]:
+    """``_stored_matches`` of a large request on SQLite, on the driver's cursor.
+
+    The same three look-ups (the span, or the times one by one when the span is
+    crowded, and the ids). SQLAlchemy spends longer expanding an IN list of hundreds of
+    values than SQLite spends answering it, so the statements are written here; times
+    are bound as the text the column stores, and only the rows found (usually none)
+    are converted back, by the columns' own result processors.
+    """
+    table = Reading.__table__
+    dialect = connection.dialect
+    time_text = table.c.observed_at.type.dialect_impl(dialect).bind_processor(dialect)
+    selected = f"SELECT {', '.join(c.key for c in _MATCH_COLUMNS)} FROM {table.name} "
+    sensor = "WHERE station_pk = ? AND source = ? AND "
+    found: list[tuple[Any, ...]] = []
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+
+        def fetch(condition: str, values: Sequence[Any]) -> list[tuple[Any, ...]]:
+            cursor.execute(selected + sensor + condition, (station_pk, source, *values))
+            return cursor.fetchall()
+
+        in_span = fetch(
+            "observed_at >= ? AND observed_at <= ? LIMIT ?",
+            (time_text(min(times)), time_text(max(times)), crowded + 1),
+        )
+        wanted = {time_text(t) for t in times}
+        if len(in_span) <= crowded:
+            found.extend(row for row in in_span if row[1] in wanted)
+        else:
+            for chunk in _chunks(sorted(wanted)):
+                found.extend(fetch(f"observed_at IN ({_marks(len(chunk))})", list(chunk)))
+        for chunk in _chunks(ids):
+            found.extend(fetch(f"reading_id IN ({_marks(len(chunk))})", list(chunk)))
+    finally:
+        cursor.close()
+    if not found:
+        return []
+    convert = [
+        column.type.dialect_impl(dialect).result_processor(dialect, None)
+        for column in _MATCH_COLUMNS
+    ]
+    unique = {row[0]: row for row in found}
+    return [
+        _Match(*(v if fn is None else fn(v) for fn, v in zip(convert, row, strict=True)))
+        for row in unique.values()
+    ]
+
+
+def _marks(count: int) -> str:
+    return ", ".join(["?"] * count)
 
 
 def _classify_against_stored(
@@ -449,6 +525,37 @@ def _small_match_query(with_ids: bool) -> Select[Any]:
     )
 
 
+@functools.lru_cache(maxsize=32)
+def _sqlite_compiled(statement: Any, dialect: Any) -> tuple[str, tuple[str, ...], tuple[Any, ...]]:
+    """SQL text, positional parameter names and their bind processors, compiled once."""
+    compiled = statement.compile(dialect=dialect)
+    names = tuple(compiled.positiontup or ())
+    processors = tuple(
+        compiled.binds[name].type.dialect_impl(dialect).bind_processor(dialect) for name in names
+    )
+    return compiled.string, names, processors
+
+
+def _sqlite_fetchall(
+    connection: Connection, statement: Any, parameters: Mapping[str, Any]
+) -> list[tuple[Any, ...]]:
+    """All rows of a built-once statement from the driver's cursor, in the session's
+    transaction, with each parameter through its column type's bind processor (so a
+    time is compared as the text the column stores). Rows are plain tuples: only for
+    statements whose columns need no result processing."""
+    sql, names, processors = _sqlite_compiled(statement, connection.dialect)
+    values = [
+        parameters[name] if process is None else process(parameters[name])
+        for name, process in zip(names, processors, strict=True)
+    ]
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+        cursor.execute(sql, values)
+        return cursor.fetchall()
+    finally:
+        cursor.close()
+
+
 def _context_columns(
     session: Session, station_pk: int, start: dt.datetime, end: dt.datetime
 ) -> dict[str, np.ndarray]:
@@ -458,17 +565,21 @@ def _context_columns(
     tuples and turned into arrays in bulk: per-row datetime objects (and, on SQLite,
     parsing each stored time in Python) cost more than the QC itself.
     """
-    sqlite = session.get_bind().dialect.name == "sqlite"
+    connection = session.connection()
+    sqlite = connection.dialect.name == "sqlite"
     # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
     # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
     # ``_epoch_seconds`` rounds the new readings' times).
     query = _context_query(sqlite)
-    # Core rows straight from the connection: no ORM row processing for a day of rows.
-    rows = (
-        session.connection()
-        .execute(query, {"station_pk": station_pk, "start": start, "end": end})
-        .all()
-    )
+    parameters = {"station_pk": station_pk, "start": start, "end": end}
+    if sqlite:
+        # Every selected column comes back from the driver as SQLAlchemy would give it
+        # (text, floats, integers: no result processing), so the driver's own cursor
+        # serves the day of rows without a Row object each.
+        rows: Sequence[Any] = _sqlite_fetchall(connection, query, parameters)
+    else:
+        # Core rows straight from the connection: no ORM row processing.
+        rows = connection.execute(query, parameters).all()
     names = (
         "id",
         "observed_at",
@@ -741,10 +852,10 @@ def ingest_readings(
     result = IngestResult()
     candidates: list[_Candidate] = []
     for position, validated in enumerate(validate_readings(items, now=now)):
-        if isinstance(validated, ReadingIn):
-            candidates.append(_Candidate(index=index_offset + position, reading=validated))
-        else:
+        if isinstance(validated, list):  # the sentences saying what is wrong
             result.reject(index_offset + position, validated)
+        else:
+            candidates.append(_Candidate(index=index_offset + position, reading=validated))
 
     _convert_alkalinity(candidates)
     candidates = _deduplicate_batch(candidates, result)
