@@ -19,7 +19,7 @@ import functools
 import logging
 import math
 from collections import namedtuple
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import SimpleNamespace
 from typing import Any
@@ -242,11 +242,11 @@ def _sqlite_matches(
             "observed_at >= ? AND observed_at <= ? LIMIT ?",
             (time_text(min(times)), time_text(max(times)), crowded + 1),
         )
-        wanted = {time_text(t) for t in times}
         if len(in_span) <= crowded:
-            found.extend(row for row in in_span if row[1] in wanted)
+            found.extend(in_span)  # the rows at other times are left out below
         else:
-            for chunk in _chunks(sorted(wanted)):
+            texts = [time_text(t) for t in times]
+            for chunk in _chunks(texts):
                 found.extend(fetch(f"observed_at IN ({_marks(len(chunk))})", list(chunk)))
         for chunk in _chunks(ids):
             found.extend(fetch(f"reading_id IN ({_marks(len(chunk))})", list(chunk)))
@@ -259,10 +259,13 @@ def _sqlite_matches(
         for column in _MATCH_COLUMNS
     ]
     unique = {row[0]: row for row in found}
-    return [
+    matches = [
         _Match(*(v if fn is None else fn(v) for fn, v in zip(convert, row, strict=True)))
         for row in unique.values()
     ]
+    wanted = set(times)  # aware datetimes hash by their UTC instant, whatever the offset
+    wanted_ids = set(ids)
+    return [m for m in matches if m.observed_at in wanted or m.reading_id in wanted_ids]
 
 
 def _marks(count: int) -> str:
@@ -765,7 +768,7 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
         elif name == "observed_at":
             columns.append(_sqlite_time_texts(values, process))
         else:
-            columns.append([process(v) for v in values])
+            columns.append(list(map(process, values)))
     written = columns[names.index("observed_at")]
     by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
     statement = (
@@ -812,6 +815,32 @@ def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> li
     statement = _unnest_insert(tuple(names), connection.dialect)
     parameters = {name: [row[name] for row in rows] for name in names}
     return list(connection.execute(statement, parameters).all())
+
+
+class _RowReadings(Sequence[Any]):
+    """The stored rows as objects with the readings' attributes (and ``id``), for the alert
+    rules; made when first read, since a station without rules never reads them."""
+
+    def __init__(self, rows: list[dict[str, Any]], ids: Mapping[dt.datetime, int]) -> None:
+        self._rows = rows
+        self._ids = ids
+        self._made: list[SimpleNamespace] | None = None
+
+    def _objects(self) -> list[SimpleNamespace]:
+        if self._made is None:
+            self._made = [
+                SimpleNamespace(**row, id=self._ids[row["observed_at"]]) for row in self._rows
+            ]
+        return self._made
+
+    def __len__(self) -> int:
+        return len(self._rows)
+
+    def __getitem__(self, index: Any) -> Any:
+        return self._objects()[index]
+
+    def __iter__(self) -> Iterator[Any]:
+        return iter(self._objects())
 
 
 def ingest_readings(
@@ -920,7 +949,22 @@ def ingest_readings(
             None if v != v else v for v in np.where(np.isfinite(values), values, np.nan).tolist()
         ]
 
-    per_row = {
+    readings = [c.reading for c in candidates]
+    count = len(readings)
+    # Column by column, then one dict per row from the columns (in C): a Python statement
+    # per value costs more than the values' chemistry.
+    columns: dict[str, list[Any]] = {
+        "station_pk": [station.pk] * count,
+        "source": [source] * count,
+        "reading_id": [r.reading_id for r in readings],
+        # In UTC, as the database gives it back (the alert rules read these rows).
+        "observed_at": [r.observed_at.astimezone(dt.UTC) for r in readings],
+        "received_at": [now] * count,
+        "temperature_c": [r.temperature_c for r in readings],
+        "salinity": [r.salinity for r in readings],
+        "ph": [r.ph for r in readings],
+        "ph_scale": scales,
+        "alkalinity_input_umol_kg": [c.alkalinity_input for c in candidates],
         "alkalinity_used_umol_kg": finite(alkalinity),
         "alkalinity_source": alkalinity_source,
         "chemistry_version": [
@@ -929,25 +973,10 @@ def ingest_readings(
         **{name: finite(derived[name]) for name in DERIVED_COLUMNS},
         **{name: flags[name].astype(int).tolist() for name in QC_COLUMNS},
     }
-    per_row_names = list(per_row)
-    rows: list[dict[str, Any]] = []
-    for candidate, values in zip(candidates, zip(*per_row.values(), strict=True), strict=True):
-        reading = candidate.reading
-        row: dict[str, Any] = {
-            "station_pk": station.pk,
-            "source": source,
-            "reading_id": reading.reading_id,
-            # In UTC, as the database gives it back (the alert rules read these rows).
-            "observed_at": reading.observed_at.astimezone(dt.UTC),
-            "received_at": now,
-            "temperature_c": reading.temperature_c,
-            "salinity": reading.salinity,
-            "ph": reading.ph,
-            "ph_scale": reading.ph_scale,
-            "alkalinity_input_umol_kg": candidate.alkalinity_input,
-        }
-        row.update(zip(per_row_names, values, strict=True))
-        rows.append(row)
+    names = list(columns)
+    rows: list[dict[str, Any]] = [
+        dict(zip(names, values, strict=True)) for values in zip(*columns.values(), strict=True)
+    ]
 
     # One order for every request, so that two inserting the same readings wait for each
     # other on the unique index instead of deadlocking.
@@ -974,14 +1003,11 @@ def ingest_readings(
     session.flush()
     # The alert rules read the new readings' values; the rows just written hold them, so
     # they are handed over as they are instead of loaded back as ORM objects.
-    passed = [
-        SimpleNamespace(
-            **row,
-            id=inserted[row["observed_at"]],
-        )
-        for row in rows
-        if row["observed_at"] in inserted and row["qc_overall"] != int(QcFlag.FAIL)
-    ]
+    failed = int(QcFlag.FAIL)
+    passed = _RowReadings(
+        [row for row in rows if row["observed_at"] in inserted and row["qc_overall"] != failed],
+        inserted,
+    )
     if passed:
         from app.alerts.evaluation import evaluate_after_ingest
 
