@@ -703,8 +703,17 @@ def _quality_control(
     return new_reading_flags, changes
 
 
-def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
-    """Insert rows, skipping any that a concurrent request stored first.
+def _column_chunks(columns: Mapping[str, list[Any]], size: int) -> list[dict[str, list[Any]]]:
+    count = len(next(iter(columns.values())))
+    return [
+        {name: values[start : start + size] for name, values in columns.items()}
+        for start in range(0, count, size)
+    ]
+
+
+def _insert_new(session: Session, columns: Mapping[str, list[Any]]) -> dict[dt.datetime, int]:
+    """Insert the rows given as columns (name to one value per row, all the same length),
+    skipping any that a concurrent request stored first.
 
     Returns the id of every row this call stored, by observed_at (unique per station
     and source).
@@ -713,15 +722,15 @@ def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetim
     dialect = connection.dialect.name
     stored: dict[dt.datetime, int] = {}
     if dialect == "postgresql":
-        for chunk in _chunks(rows, POSTGRESQL_INSERT_CHUNK):
-            for row_id, observed_at in _insert_postgresql(connection, list(chunk)):
+        for chunk in _column_chunks(columns, POSTGRESQL_INSERT_CHUNK):
+            for row_id, observed_at in _insert_postgresql(connection, chunk):
                 stored[observed_at] = row_id
         return stored
     if dialect != "sqlite":  # pragma: no cover - the service supports these two databases
         raise RuntimeError(f"unsupported database dialect {dialect!r}")
 
-    for chunk in _chunks(rows, INSERT_CHUNK):
-        stored.update(_insert_sqlite(connection, list(chunk)))
+    for chunk in _column_chunks(columns, INSERT_CHUNK):
+        stored.update(_insert_sqlite(connection, chunk))
     return stored
 
 
@@ -741,7 +750,9 @@ def _sqlite_time_texts(values: list[dt.datetime], process: Callable[[Any], Any])
     return texts
 
 
-def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
+def _insert_sqlite(
+    connection: Connection, columns: Mapping[str, list[Any]]
+) -> dict[dt.datetime, int]:
     """The driver's executemany of ``INSERT ... ON CONFLICT DO NOTHING``, then our new rows.
 
     The values go through each column type's own bind processor once per column, so
@@ -756,21 +767,22 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     """
     table = Reading.__table__
     dialect = connection.dialect
-    names = list(rows[0])
-    columns: list[list[Any]] = []
+    names = list(columns)
+    count = len(columns["observed_at"])
+    bound: list[list[Any]] = []
     for name in names:
-        values = [row[name] for row in rows]
+        values = columns[name]
         process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
         if process is None:
-            columns.append(values)
+            bound.append(values)
         elif name == "received_at":  # one ingest time for the whole request
-            columns.append([process(values[0])] * len(values))
+            bound.append([process(values[0])] * len(values))
         elif name == "observed_at":
-            columns.append(_sqlite_time_texts(values, process))
+            bound.append(_sqlite_time_texts(values, process))
         else:
-            columns.append(list(map(process, values)))
-    written = columns[names.index("observed_at")]
-    by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
+            bound.append(list(map(process, values)))
+    written = bound[names.index("observed_at")]
+    by_text = dict(zip(written, columns["observed_at"], strict=True))
     statement = (
         f"INSERT INTO {table.name} ({', '.join(names)}) "
         f"VALUES ({', '.join('?' for _ in names)}) ON CONFLICT DO NOTHING"
@@ -781,8 +793,8 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     try:
         cursor.execute(f"SELECT coalesce(max(id), 0) FROM {table.name}")
         (before,) = cursor.fetchone()
-        cursor.executemany(statement, zip(*columns, strict=True))
-        if before >= 2**63 - 1 - len(rows):  # pragma: no cover - SQLite would pick random rowids
+        cursor.executemany(statement, zip(*bound, strict=True))
+        if before >= 2**63 - 1 - count:  # pragma: no cover - SQLite would pick random rowids
             raise RuntimeError("the readings table has run out of rowids")
         cursor.execute(f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,))
         new = cursor.fetchall()
@@ -805,36 +817,44 @@ def _unnest_insert(names: tuple[str, ...], dialect: Any) -> Any:
     ).columns(table.c.id, table.c.observed_at)
 
 
-def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> list[Any]:
+def _insert_postgresql(connection: Connection, columns: Mapping[str, list[Any]]) -> list[Any]:
     """One INSERT ... SELECT FROM unnest(arrays): one parameter per column, not per value.
 
     psycopg parses every placeholder of a statement in Python, so a multi-row VALUES with
     150,000 placeholders spends seconds there; thirty arrays cost nothing.
     """
-    names = list(rows[0])
-    statement = _unnest_insert(tuple(names), connection.dialect)
-    parameters = {name: [row[name] for row in rows] for name in names}
-    return list(connection.execute(statement, parameters).all())
+    statement = _unnest_insert(tuple(columns), connection.dialect)
+    return list(connection.execute(statement, dict(columns)).all())
 
 
 class _RowReadings(Sequence[Any]):
-    """The stored rows as objects with the readings' attributes (and ``id``), for the alert
-    rules; made when first read, since a station without rules never reads them."""
+    """Stored rows (by position in the insert's columns) as objects with the readings'
+    attributes and ``id``, for the alert rules; made when first read, since a station
+    without rules never reads them."""
 
-    def __init__(self, rows: list[dict[str, Any]], ids: Mapping[dt.datetime, int]) -> None:
-        self._rows = rows
+    def __init__(
+        self,
+        columns: Mapping[str, list[Any]],
+        positions: list[int],
+        ids: Mapping[dt.datetime, int],
+    ) -> None:
+        self._columns = columns
+        self._positions = positions
         self._ids = ids
         self._made: list[SimpleNamespace] | None = None
 
     def _objects(self) -> list[SimpleNamespace]:
         if self._made is None:
-            self._made = [
-                SimpleNamespace(**row, id=self._ids[row["observed_at"]]) for row in self._rows
-            ]
+            names = list(self._columns)
+            made = []
+            for position in self._positions:
+                row = {name: self._columns[name][position] for name in names}
+                made.append(SimpleNamespace(**row, id=self._ids[row["observed_at"]]))
+            self._made = made
         return self._made
 
     def __len__(self) -> int:
-        return len(self._rows)
+        return len(self._positions)
 
     def __getitem__(self, index: Any) -> Any:
         return self._objects()[index]
@@ -897,6 +917,9 @@ def ingest_readings(
         result.rejected.sort(key=lambda item: item.index)
         return result
 
+    # One order for every request, so that two inserting the same readings wait for each
+    # other on the unique index instead of deadlocking; every column below follows it.
+    candidates.sort(key=lambda candidate: candidate.reading.observed_at)
     site = session.get(Site, station.site_id)
     carbonic = site.carbonic_constants if site is not None else "lueker2000"
     temperature = np.array([_float_or_nan(c.reading.temperature_c) for c in candidates])
@@ -951,8 +974,8 @@ def ingest_readings(
 
     readings = [c.reading for c in candidates]
     count = len(readings)
-    # Column by column, then one dict per row from the columns (in C): a Python statement
-    # per value costs more than the values' chemistry.
+    # Column by column, as the insert binds them: a Python statement per value costs more
+    # than the values' chemistry.
     columns: dict[str, list[Any]] = {
         "station_pk": [station.pk] * count,
         "source": [source] * count,
@@ -973,15 +996,7 @@ def ingest_readings(
         **{name: finite(derived[name]) for name in DERIVED_COLUMNS},
         **{name: flags[name].astype(int).tolist() for name in QC_COLUMNS},
     }
-    names = list(columns)
-    rows: list[dict[str, Any]] = [
-        dict(zip(names, values, strict=True)) for values in zip(*columns.values(), strict=True)
-    ]
-
-    # One order for every request, so that two inserting the same readings wait for each
-    # other on the unique index instead of deadlocking.
-    rows.sort(key=lambda row: row["observed_at"])
-    inserted = _insert_new(session, rows)
+    inserted = _insert_new(session, columns)
     raced = [c for c in candidates if c.reading.observed_at not in inserted]
     if raced:
         # Another request stored these between our check and our insert.
@@ -1005,7 +1020,14 @@ def ingest_readings(
     # they are handed over as they are instead of loaded back as ORM objects.
     failed = int(QcFlag.FAIL)
     passed = _RowReadings(
-        [row for row in rows if row["observed_at"] in inserted and row["qc_overall"] != failed],
+        columns,
+        [
+            index
+            for index, (observed_at, overall) in enumerate(
+                zip(columns["observed_at"], columns["qc_overall"], strict=True)
+            )
+            if observed_at in inserted and overall != failed
+        ],
         inserted,
     )
     if passed:
