@@ -655,7 +655,8 @@ def _quality_control(
     affected_from, affected_to = _epoch_seconds(first - gap), _epoch_seconds(last + window)
 
     count = stored["id"].size
-    seconds = np.concatenate([stored["seconds"], [_epoch_seconds(t) for t in times]])
+    # datetime.timestamp() of an aware time is _epoch_seconds, in one C call.
+    seconds = np.concatenate([stored["seconds"], [t.timestamp() for t in times]])
     from_station = np.concatenate(
         [
             stored["from_station"],
@@ -763,7 +764,8 @@ def _insert_sqlite(
     The rows this call stored are the ones with a rowid above the largest before it:
     the transaction holds SQLite's write lock from its first write (the service begins
     IMMEDIATE), so no other writer interleaves, and SQLite gives a new row the largest
-    rowid plus one.
+    rowid plus one. When every row went in, those rowids are the next ``count`` in
+    order; otherwise they are read back with their times.
     """
     table = Reading.__table__
     dialect = connection.dialect
@@ -781,8 +783,6 @@ def _insert_sqlite(
             bound.append(_sqlite_time_texts(values, process))
         else:
             bound.append(list(map(process, values)))
-    written = bound[names.index("observed_at")]
-    by_text = dict(zip(written, columns["observed_at"], strict=True))
     statement = (
         f"INSERT INTO {table.name} ({', '.join(names)}) "
         f"VALUES ({', '.join('?' for _ in names)}) ON CONFLICT DO NOTHING"
@@ -796,10 +796,17 @@ def _insert_sqlite(
         cursor.executemany(statement, zip(*bound, strict=True))
         if before >= 2**63 - 1 - count:  # pragma: no cover - SQLite would pick random rowids
             raise RuntimeError("the readings table has run out of rowids")
+        if cursor.rowcount == count:
+            # Every row went in (none was stored first by another request), one rowid
+            # after another in the order given: no need to read them back.
+            return dict(
+                zip(columns["observed_at"], range(before + 1, before + 1 + count), strict=True)
+            )
         cursor.execute(f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,))
         new = cursor.fetchall()
     finally:
         cursor.close()
+    by_text = dict(zip(bound[names.index("observed_at")], columns["observed_at"], strict=True))
     return {by_text[observed_at]: row_id for row_id, observed_at in new}
 
 
