@@ -469,10 +469,6 @@ def _derive(
     return out
 
 
-def _float_or_nan(value: float | None) -> float:
-    return np.nan if value is None else float(value)
-
-
 def _qc_limits(station: Station) -> Mapping[str, QcLimits]:
     try:
         return limits_with_overrides(station.qc_limits or None)
@@ -929,11 +925,12 @@ def ingest_readings(
     candidates.sort(key=lambda candidate: candidate.reading.observed_at)
     site = session.get(Site, station.site_id)
     carbonic = site.carbonic_constants if site is not None else "lueker2000"
-    temperature = np.array([_float_or_nan(c.reading.temperature_c) for c in candidates])
-    salinity = np.array([_float_or_nan(c.reading.salinity) for c in candidates])
-    ph = np.array([_float_or_nan(c.reading.ph) for c in candidates])
+    # Validated values are floats or None; numpy makes None NaN.
+    temperature = np.array([c.reading.temperature_c for c in candidates], dtype=float)
+    salinity = np.array([c.reading.salinity for c in candidates], dtype=float)
+    ph = np.array([c.reading.ph for c in candidates], dtype=float)
     scales = [c.reading.ph_scale for c in candidates]
-    alkalinity_input = np.array([_float_or_nan(c.alkalinity_input) for c in candidates])
+    alkalinity_input = np.array([c.alkalinity_input for c in candidates], dtype=float)
     alkalinity, u_alkalinity, alkalinity_source = _alkalinity_used(candidates, station)
     limits = _qc_limits(station)
     sensor_fault = np.zeros(len(candidates), dtype=bool)
