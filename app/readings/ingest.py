@@ -14,6 +14,7 @@ Two requests racing with the same reading are settled by the unique constraints
 
 from __future__ import annotations
 
+import bisect
 import datetime as dt
 import functools
 import logging
@@ -511,6 +512,37 @@ def _context_query(sqlite: bool) -> Select[Any]:
     )
 
 
+_VALUE_NAMES = (
+    "observed_at",
+    "temperature_c",
+    "salinity",
+    "ph",
+    "alkalinity_input_umol_kg",
+    "alkalinity_source",
+    "omega_aragonite",
+)
+
+
+@functools.cache
+def _sqlite_context_queries() -> tuple[Select[Any], Select[Any]]:
+    """SQLite's neighbours in two parts, built once: what QC tests (times and values) for
+    the whole window, and ids with the stored flags only where flags may change.
+
+    SQLite's cost here is per column and row returned; the flags of the rows outside the
+    span a new reading can touch are never compared, so they are not read.
+    """
+    span = (
+        Reading.station_pk == bindparam("station_pk"),
+        Reading.observed_at >= bindparam("start"),
+        Reading.observed_at <= bindparam("end"),
+    )
+    observed = type_coerce(Reading.observed_at, String)
+    order = (Reading.observed_at, Reading.id)
+    values = select(observed, *(getattr(Reading, name) for name in _VALUE_NAMES[1:]))
+    flags = select(observed, Reading.id, *(getattr(Reading, name) for name in QC_COLUMNS))
+    return values.where(*span).order_by(*order), flags.where(*span).order_by(*order)
+
+
 @functools.cache
 def _small_match_query(with_ids: bool) -> Select[Any]:
     """Stored readings of a sensor at any of ``times`` (or with any of ``ids``), built once."""
@@ -556,25 +588,113 @@ def _sqlite_fetchall(
 
 
 def _context_columns(
-    session: Session, station_pk: int, start: dt.datetime, end: dt.datetime
+    session: Session,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    *,
+    affected: tuple[dt.datetime, dt.datetime],
 ) -> dict[str, np.ndarray]:
     """The station's stored readings in [start, end], time order, as numpy columns.
 
     QC reads about a day of neighbours for every request, so the rows are taken as plain
     tuples and turned into arrays in bulk: per-row datetime objects (and, on SQLite,
-    parsing each stored time in Python) cost more than the QC itself.
+    parsing each stored time in Python) cost more than the QC itself. ``affected`` is the
+    span whose stored flags may change (``"affected"`` marks those rows); ids and flags
+    are only meaningful there.
     """
     connection = session.connection()
+    if connection.dialect.name == "sqlite":
+        columns = _sqlite_context(connection, station_pk, start, end, affected)
+        if columns is not None:
+            return columns
+    # SQLite's two parts disagreed (they cannot within one transaction) or PostgreSQL:
+    # every column of every row in one query.
+    return _context_columns_whole(connection, station_pk, start, end, affected)
+
+
+def _context_arrays(
+    columns: Mapping[str, Sequence[Any]], seconds: np.ndarray
+) -> dict[str, np.ndarray]:
+    out: dict[str, np.ndarray] = {
+        "seconds": seconds,
+        "from_station": np.array(
+            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
+            dtype=bool,
+        ),
+        "available": np.array(
+            [value is not None for value in columns["omega_aragonite"]], dtype=bool
+        ),
+    }
+    for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
+        out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
+    return out
+
+
+def _sqlite_seconds(texts: Sequence[str]) -> np.ndarray:
+    # SQLite keeps naive UTC text, which numpy parses a column at a time in C.
+    return np.array(texts, dtype="datetime64[us]").astype(np.int64) / 1e6
+
+
+def _sqlite_context(
+    connection: Connection,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    affected: tuple[dt.datetime, dt.datetime],
+) -> dict[str, np.ndarray] | None:
+    """``_context_columns`` on SQLite's own cursor, values and flags read apart.
+
+    Every selected column comes back from the driver as SQLAlchemy would give it (text,
+    floats, integers: no result processing). The flags' rows are the values' rows with
+    a time in ``affected``, in the same order; None if they do not line up.
+    """
+    values_query, flags_query = _sqlite_context_queries()
+    rows = _sqlite_fetchall(
+        connection, values_query, {"station_pk": station_pk, "start": start, "end": end}
+    )
+    flag_rows = _sqlite_fetchall(
+        connection,
+        flags_query,
+        {"station_pk": station_pk, "start": affected[0], "end": affected[1]},
+    )
+    if rows:
+        columns = dict(zip(_VALUE_NAMES, zip(*rows, strict=True), strict=True))
+    else:
+        columns = {name: () for name in _VALUE_NAMES}
+    texts = columns["observed_at"]
+    time_text = Reading.__table__.c.observed_at.type.dialect_impl(
+        connection.dialect
+    ).bind_processor(connection.dialect)
+    low = bisect.bisect_left(texts, time_text(affected[0]))
+    high = bisect.bisect_right(texts, time_text(affected[1]))
+    if high - low != len(flag_rows) or any(
+        row[0] != text for row, text in zip(flag_rows, texts[low:high], strict=False)
+    ):
+        return None
+    out = _context_arrays(columns, _sqlite_seconds(texts))
+    count = len(texts)
+    out["affected"] = np.zeros(count, dtype=bool)
+    out["affected"][low:high] = True
+    flags = list(zip(*flag_rows, strict=True)) if flag_rows else [()] * (2 + len(QC_COLUMNS))
+    # Rows outside the affected span keep id and flags 0: never compared nor updated.
+    for position, name in enumerate(("id", *QC_COLUMNS), start=1):
+        out[name] = np.zeros(count, dtype=np.int64)
+        out[name][low:high] = np.array(flags[position], dtype=np.int64)
+    return out
+
+
+def _context_columns_whole(
+    connection: Connection,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    affected: tuple[dt.datetime, dt.datetime],
+) -> dict[str, np.ndarray]:
     sqlite = connection.dialect.name == "sqlite"
-    # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
-    # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
-    # ``_epoch_seconds`` rounds the new readings' times).
     query = _context_query(sqlite)
     parameters = {"station_pk": station_pk, "start": start, "end": end}
     if sqlite:
-        # Every selected column comes back from the driver as SQLAlchemy would give it
-        # (text, floats, integers: no result processing), so the driver's own cursor
-        # serves the day of rows without a Row object each.
         rows: Sequence[Any] = _sqlite_fetchall(connection, query, parameters)
     else:
         # Core rows straight from the connection: no ORM row processing.
@@ -595,23 +715,16 @@ def _context_columns(
     else:
         columns = dict(zip(names, zip(*rows, strict=True), strict=True))
     if sqlite:
-        micros = np.array(columns["observed_at"], dtype="datetime64[us]").astype(np.int64)
-        seconds = micros / 1e6
+        seconds = _sqlite_seconds(columns["observed_at"])
     else:
+        # PostgreSQL gives the epoch seconds itself (exact microseconds, rounded once to
+        # a double, as ``_epoch_seconds`` rounds the new readings' times).
         seconds = np.array(columns["observed_at"], dtype=float)
-    out: dict[str, np.ndarray] = {
-        "id": np.array(columns["id"], dtype=np.int64),
-        "seconds": seconds,
-        "from_station": np.array(
-            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
-            dtype=bool,
-        ),
-        "available": np.array(
-            [value is not None for value in columns["omega_aragonite"]], dtype=bool
-        ),
-    }
-    for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
-        out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
+    out = _context_arrays(columns, seconds)
+    out["affected"] = (seconds >= _epoch_seconds(affected[0])) & (
+        seconds <= _epoch_seconds(affected[1])
+    )
+    out["id"] = np.array(columns["id"], dtype=np.int64)
     for name in QC_COLUMNS:
         out[name] = np.array(columns[name], dtype=np.int64)
     return out
@@ -647,8 +760,16 @@ def _quality_control(
     window = dt.timedelta(hours=max(lim.rate_of_change_window_hours for lim in limits.values()))
     gap = dt.timedelta(minutes=max(lim.max_gap_minutes for lim in limits.values()))
     first, last = min(times), max(times)
-    stored = _context_columns(session, station.pk, first - window - gap, last + window + gap)
-    affected_from, affected_to = _epoch_seconds(first - gap), _epoch_seconds(last + window)
+    # Stored flags can change from a gap before the first new reading (its spike test gains
+    # a neighbour) to a window after the last (their rate of change sees it); testing
+    # those needs a window and a gap more on each side.
+    stored = _context_columns(
+        session,
+        station.pk,
+        first - window - gap,
+        last + window + gap,
+        affected=(first - gap, last + window),
+    )
 
     count = stored["id"].size
     # datetime.timestamp() of an aware time is _epoch_seconds, in one C call.
@@ -685,8 +806,7 @@ def _quality_control(
         "qc_derived": result.derived,
         "qc_overall": result.overall,
     }
-    old_seconds = stored["seconds"]
-    changed = (old_seconds >= affected_from) & (old_seconds <= affected_to)
+    changed = stored["affected"].copy()
     changed &= (
         np.any([stored[name] != flags[name][:count] for name in QC_COLUMNS], axis=0)
         if count
