@@ -15,12 +15,13 @@ import json
 import math
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Coroutine
 from dataclasses import dataclass
 from typing import Annotated, Any
 
 from fastapi import Depends, HTTPException, Request, status
-from fastapi.responses import JSONResponse
+from fastapi.responses import JSONResponse, Response
+from fastapi.routing import APIRoute
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.auth.dependencies import Principal, require_device
@@ -130,6 +131,36 @@ class StrictJsonMiddleware:
         await self.app(scope, replay, send)
 
 
+# Where ``StrictJsonMiddleware`` leaves the body it parsed, in the request's scope.
+PARSED_JSON_KEY = "spatline.parsed_json"
+
+
+class ParsedJsonRequest(Request):
+    """A request whose ``json()`` is the body ``StrictJsonMiddleware`` already parsed.
+
+    The middleware's parse is ``json.loads`` with a duplicate-key check, so the value is
+    the one the route would get by parsing the body again; a body the middleware did not
+    parse (not JSON, or no middleware) is parsed as usual.
+    """
+
+    async def json(self) -> Any:
+        if PARSED_JSON_KEY in self.scope:
+            return self.scope[PARSED_JSON_KEY]
+        return await super().json()
+
+
+class ParsedJsonRoute(APIRoute):
+    """An API route whose body parameter is read from the middleware's parse."""
+
+    def get_route_handler(self) -> Callable[[Request], Coroutine[Any, Any, Response]]:
+        handler = super().get_route_handler()
+
+        async def parsed_json_handler(request: Request) -> Response:
+            return await handler(ParsedJsonRequest(request.scope, request.receive))
+
+        return parsed_json_handler
+
+
 class DuplicateKeyError(ValueError):
     def __init__(self, key: str) -> None:
         super().__init__(key)
@@ -166,7 +197,8 @@ def _json_problem(scope: Scope, body: bytes) -> tuple[int, str] | None:
             f"the content type was {shown}.",
         )
     try:
-        strict_json_loads(body)
+        # Kept for the route (``ParsedJsonRoute``): a 1,000-reading body is not parsed twice.
+        scope[PARSED_JSON_KEY] = strict_json_loads(body)
     except DuplicateKeyError as error:
         return (
             status.HTTP_422_UNPROCESSABLE_CONTENT,

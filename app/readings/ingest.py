@@ -14,11 +14,13 @@ Two requests racing with the same reading are settled by the unique constraints
 
 from __future__ import annotations
 
+import bisect
 import datetime as dt
 import functools
 import logging
 import math
-from collections.abc import Callable, Mapping, Sequence
+from collections import namedtuple
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import SimpleNamespace
 from typing import Any
@@ -48,7 +50,7 @@ from app.readings.qc import (
     limits_with_overrides,
     run_qc,
 )
-from app.readings.schemas import ReadingIn, RejectedItem, validate_readings
+from app.readings.schemas import CheckedReading, ReadingIn, RejectedItem, validate_readings
 from app.sites.models import Site, Station
 from app.status.rollups import refresh_rollups
 
@@ -106,10 +108,10 @@ class IngestResult:
         self.rejected.append(RejectedItem(index=index, errors=errors))
 
 
-@dataclass
+@dataclass(slots=True)
 class _Candidate:
     index: int
-    reading: ReadingIn
+    reading: ReadingIn | CheckedReading
     alkalinity_input: float | None = None
 
     @property
@@ -149,6 +151,10 @@ _MATCH_COLUMNS = (
 )
 
 
+# A stored match found on SQLite's own cursor, with the attributes of a Core row.
+_Match = namedtuple("_Match", [column.key for column in _MATCH_COLUMNS])
+
+
 def _stored_matches(
     session: Session, *, station_pk: int, source: str, candidates: Sequence[_Candidate]
 ) -> list[Any]:
@@ -169,6 +175,16 @@ def _stored_matches(
     # that turns out to be crowded (a backfill between stored readings) is looked up
     # time by time instead.
     crowded = 2 * len(candidates) + 100
+    connection = session.connection()
+    if connection.dialect.name == "sqlite":
+        return _sqlite_matches(
+            connection,
+            station_pk=station_pk,
+            source=source,
+            times=times,
+            ids=ids,
+            crowded=crowded,
+        )
     in_span = session.execute(
         select(*_MATCH_COLUMNS)
         .where(*this_sensor, Reading.observed_at >= min(times), Reading.observed_at <= max(times))
@@ -192,6 +208,70 @@ def _stored_matches(
         )
     unique = {row.id: row for row in rows}
     return list(unique.values())
+
+
+def _sqlite_matches(
+    connection: Connection,
+    *,
+    station_pk: int,
+    source: str,
+    times: Sequence[dt.datetime],
+    ids: Sequence[str],
+    crowded: int,
+) -> list[Any]:
+    """``_stored_matches`` of a large request on SQLite, on the driver's cursor.
+
+    The same three look-ups (the span, or the times one by one when the span is
+    crowded, and the ids). SQLAlchemy spends longer expanding an IN list of hundreds of
+    values than SQLite spends answering it, so the statements are written here; times
+    are bound as the text the column stores, and only the rows found (usually none)
+    are converted back, by the columns' own result processors.
+    """
+    table = Reading.__table__
+    dialect = connection.dialect
+    time_text = table.c.observed_at.type.dialect_impl(dialect).bind_processor(dialect)
+    selected = f"SELECT {', '.join(c.key for c in _MATCH_COLUMNS)} FROM {table.name} "
+    sensor = "WHERE station_pk = ? AND source = ? AND "
+    found: list[tuple[Any, ...]] = []
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+
+        def fetch(condition: str, values: Sequence[Any]) -> list[tuple[Any, ...]]:
+            cursor.execute(selected + sensor + condition, (station_pk, source, *values))
+            return cursor.fetchall()
+
+        in_span = fetch(
+            "observed_at >= ? AND observed_at <= ? LIMIT ?",
+            (time_text(min(times)), time_text(max(times)), crowded + 1),
+        )
+        if len(in_span) <= crowded:
+            found.extend(in_span)  # the rows at other times are left out below
+        else:
+            texts = [time_text(t) for t in times]
+            for chunk in _chunks(texts):
+                found.extend(fetch(f"observed_at IN ({_marks(len(chunk))})", list(chunk)))
+        for chunk in _chunks(ids):
+            found.extend(fetch(f"reading_id IN ({_marks(len(chunk))})", list(chunk)))
+    finally:
+        cursor.close()
+    if not found:
+        return []
+    convert = [
+        column.type.dialect_impl(dialect).result_processor(dialect, None)
+        for column in _MATCH_COLUMNS
+    ]
+    unique = {row[0]: row for row in found}
+    matches = [
+        _Match(*(v if fn is None else fn(v) for fn, v in zip(convert, row, strict=True)))
+        for row in unique.values()
+    ]
+    wanted = set(times)  # aware datetimes hash by their UTC instant, whatever the offset
+    wanted_ids = set(ids)
+    return [m for m in matches if m.observed_at in wanted or m.reading_id in wanted_ids]
+
+
+def _marks(count: int) -> str:
+    return ", ".join(["?"] * count)
 
 
 def _classify_against_stored(
@@ -391,10 +471,6 @@ def _derive(
     return out
 
 
-def _float_or_nan(value: float | None) -> float:
-    return np.nan if value is None else float(value)
-
-
 def _qc_limits(station: Station) -> Mapping[str, QcLimits]:
     try:
         return limits_with_overrides(station.qc_limits or None)
@@ -437,6 +513,37 @@ def _context_query(sqlite: bool) -> Select[Any]:
     )
 
 
+_VALUE_NAMES = (
+    "observed_at",
+    "temperature_c",
+    "salinity",
+    "ph",
+    "alkalinity_input_umol_kg",
+    "alkalinity_source",
+    "omega_aragonite",
+)
+
+
+@functools.cache
+def _sqlite_context_queries() -> tuple[Select[Any], Select[Any]]:
+    """SQLite's neighbours in two parts, built once: what QC tests (times and values) for
+    the whole window, and ids with the stored flags only where flags may change.
+
+    SQLite's cost here is per column and row returned; the flags of the rows outside the
+    span a new reading can touch are never compared, so they are not read.
+    """
+    span = (
+        Reading.station_pk == bindparam("station_pk"),
+        Reading.observed_at >= bindparam("start"),
+        Reading.observed_at <= bindparam("end"),
+    )
+    observed = type_coerce(Reading.observed_at, String)
+    order = (Reading.observed_at, Reading.id)
+    values = select(observed, *(getattr(Reading, name) for name in _VALUE_NAMES[1:]))
+    flags = select(observed, Reading.id, *(getattr(Reading, name) for name in QC_COLUMNS))
+    return values.where(*span).order_by(*order), flags.where(*span).order_by(*order)
+
+
 @functools.cache
 def _small_match_query(with_ids: bool) -> Select[Any]:
     """Stored readings of a sensor at any of ``times`` (or with any of ``ids``), built once."""
@@ -450,26 +557,149 @@ def _small_match_query(with_ids: bool) -> Select[Any]:
     )
 
 
+@functools.lru_cache(maxsize=32)
+def _sqlite_compiled(statement: Any, dialect: Any) -> tuple[str, tuple[str, ...], tuple[Any, ...]]:
+    """SQL text, positional parameter names and their bind processors, compiled once."""
+    compiled = statement.compile(dialect=dialect)
+    names = tuple(compiled.positiontup or ())
+    processors = tuple(
+        compiled.binds[name].type.dialect_impl(dialect).bind_processor(dialect) for name in names
+    )
+    return compiled.string, names, processors
+
+
+def _sqlite_fetchall(
+    connection: Connection, statement: Any, parameters: Mapping[str, Any]
+) -> list[tuple[Any, ...]]:
+    """All rows of a built-once statement from the driver's cursor, in the session's
+    transaction, with each parameter through its column type's bind processor (so a
+    time is compared as the text the column stores). Rows are plain tuples: only for
+    statements whose columns need no result processing."""
+    sql, names, processors = _sqlite_compiled(statement, connection.dialect)
+    values = [
+        parameters[name] if process is None else process(parameters[name])
+        for name, process in zip(names, processors, strict=True)
+    ]
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+        cursor.execute(sql, values)
+        return cursor.fetchall()
+    finally:
+        cursor.close()
+
+
 def _context_columns(
-    session: Session, station_pk: int, start: dt.datetime, end: dt.datetime
+    session: Session,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    *,
+    affected: tuple[dt.datetime, dt.datetime],
 ) -> dict[str, np.ndarray]:
     """The station's stored readings in [start, end], time order, as numpy columns.
 
     QC reads about a day of neighbours for every request, so the rows are taken as plain
     tuples and turned into arrays in bulk: per-row datetime objects (and, on SQLite,
-    parsing each stored time in Python) cost more than the QC itself.
+    parsing each stored time in Python) cost more than the QC itself. ``affected`` is the
+    span whose stored flags may change (``"affected"`` marks those rows); ids and flags
+    are only meaningful there.
     """
-    sqlite = session.get_bind().dialect.name == "sqlite"
-    # SQLite keeps naive UTC text, which numpy parses a column at a time in C; PostgreSQL
-    # gives the epoch seconds itself (exact microseconds, rounded once to a double, as
-    # ``_epoch_seconds`` rounds the new readings' times).
-    query = _context_query(sqlite)
-    # Core rows straight from the connection: no ORM row processing for a day of rows.
-    rows = (
-        session.connection()
-        .execute(query, {"station_pk": station_pk, "start": start, "end": end})
-        .all()
+    connection = session.connection()
+    if connection.dialect.name == "sqlite":
+        columns = _sqlite_context(connection, station_pk, start, end, affected)
+        if columns is not None:
+            return columns
+    # SQLite's two parts disagreed (they cannot within one transaction) or PostgreSQL:
+    # every column of every row in one query.
+    return _context_columns_whole(connection, station_pk, start, end, affected)
+
+
+def _context_arrays(
+    columns: Mapping[str, Sequence[Any]], seconds: np.ndarray
+) -> dict[str, np.ndarray]:
+    out: dict[str, np.ndarray] = {
+        "seconds": seconds,
+        "from_station": np.array(
+            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
+            dtype=bool,
+        ),
+        "available": np.array(
+            [value is not None for value in columns["omega_aragonite"]], dtype=bool
+        ),
+    }
+    for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
+        out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
+    return out
+
+
+def _sqlite_seconds(texts: Sequence[str]) -> np.ndarray:
+    # SQLite keeps naive UTC text, which numpy parses a column at a time in C.
+    return np.array(texts, dtype="datetime64[us]").astype(np.int64) / 1e6
+
+
+def _sqlite_context(
+    connection: Connection,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    affected: tuple[dt.datetime, dt.datetime],
+) -> dict[str, np.ndarray] | None:
+    """``_context_columns`` on SQLite's own cursor, values and flags read apart.
+
+    Every selected column comes back from the driver as SQLAlchemy would give it (text,
+    floats, integers: no result processing). The flags' rows are the values' rows with
+    a time in ``affected``, in the same order; None if they do not line up.
+    """
+    values_query, flags_query = _sqlite_context_queries()
+    rows = _sqlite_fetchall(
+        connection, values_query, {"station_pk": station_pk, "start": start, "end": end}
     )
+    flag_rows = _sqlite_fetchall(
+        connection,
+        flags_query,
+        {"station_pk": station_pk, "start": affected[0], "end": affected[1]},
+    )
+    if rows:
+        columns = dict(zip(_VALUE_NAMES, zip(*rows, strict=True), strict=True))
+    else:
+        columns = {name: () for name in _VALUE_NAMES}
+    texts = columns["observed_at"]
+    time_text = Reading.__table__.c.observed_at.type.dialect_impl(
+        connection.dialect
+    ).bind_processor(connection.dialect)
+    low = bisect.bisect_left(texts, time_text(affected[0]))
+    high = bisect.bisect_right(texts, time_text(affected[1]))
+    if high - low != len(flag_rows) or any(
+        row[0] != text for row, text in zip(flag_rows, texts[low:high], strict=False)
+    ):
+        return None
+    out = _context_arrays(columns, _sqlite_seconds(texts))
+    count = len(texts)
+    out["affected"] = np.zeros(count, dtype=bool)
+    out["affected"][low:high] = True
+    flags = list(zip(*flag_rows, strict=True)) if flag_rows else [()] * (2 + len(QC_COLUMNS))
+    # Rows outside the affected span keep id and flags 0: never compared nor updated.
+    for position, name in enumerate(("id", *QC_COLUMNS), start=1):
+        out[name] = np.zeros(count, dtype=np.int64)
+        out[name][low:high] = np.array(flags[position], dtype=np.int64)
+    return out
+
+
+def _context_columns_whole(
+    connection: Connection,
+    station_pk: int,
+    start: dt.datetime,
+    end: dt.datetime,
+    affected: tuple[dt.datetime, dt.datetime],
+) -> dict[str, np.ndarray]:
+    sqlite = connection.dialect.name == "sqlite"
+    query = _context_query(sqlite)
+    parameters = {"station_pk": station_pk, "start": start, "end": end}
+    if sqlite:
+        rows: Sequence[Any] = _sqlite_fetchall(connection, query, parameters)
+    else:
+        # Core rows straight from the connection: no ORM row processing.
+        rows = connection.execute(query, parameters).all()
     names = (
         "id",
         "observed_at",
@@ -486,23 +716,16 @@ def _context_columns(
     else:
         columns = dict(zip(names, zip(*rows, strict=True), strict=True))
     if sqlite:
-        micros = np.array(columns["observed_at"], dtype="datetime64[us]").astype(np.int64)
-        seconds = micros / 1e6
+        seconds = _sqlite_seconds(columns["observed_at"])
     else:
+        # PostgreSQL gives the epoch seconds itself (exact microseconds, rounded once to
+        # a double, as ``_epoch_seconds`` rounds the new readings' times).
         seconds = np.array(columns["observed_at"], dtype=float)
-    out: dict[str, np.ndarray] = {
-        "id": np.array(columns["id"], dtype=np.int64),
-        "seconds": seconds,
-        "from_station": np.array(
-            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
-            dtype=bool,
-        ),
-        "available": np.array(
-            [value is not None for value in columns["omega_aragonite"]], dtype=bool
-        ),
-    }
-    for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
-        out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
+    out = _context_arrays(columns, seconds)
+    out["affected"] = (seconds >= _epoch_seconds(affected[0])) & (
+        seconds <= _epoch_seconds(affected[1])
+    )
+    out["id"] = np.array(columns["id"], dtype=np.int64)
     for name in QC_COLUMNS:
         out[name] = np.array(columns[name], dtype=np.int64)
     return out
@@ -538,11 +761,20 @@ def _quality_control(
     window = dt.timedelta(hours=max(lim.rate_of_change_window_hours for lim in limits.values()))
     gap = dt.timedelta(minutes=max(lim.max_gap_minutes for lim in limits.values()))
     first, last = min(times), max(times)
-    stored = _context_columns(session, station.pk, first - window - gap, last + window + gap)
-    affected_from, affected_to = _epoch_seconds(first - gap), _epoch_seconds(last + window)
+    # Stored flags can change from a gap before the first new reading (its spike test gains
+    # a neighbour) to a window after the last (their rate of change sees it); testing
+    # those needs a window and a gap more on each side.
+    stored = _context_columns(
+        session,
+        station.pk,
+        first - window - gap,
+        last + window + gap,
+        affected=(first - gap, last + window),
+    )
 
     count = stored["id"].size
-    seconds = np.concatenate([stored["seconds"], [_epoch_seconds(t) for t in times]])
+    # datetime.timestamp() of an aware time is _epoch_seconds, in one C call.
+    seconds = np.concatenate([stored["seconds"], [t.timestamp() for t in times]])
     from_station = np.concatenate(
         [
             stored["from_station"],
@@ -575,8 +807,7 @@ def _quality_control(
         "qc_derived": result.derived,
         "qc_overall": result.overall,
     }
-    old_seconds = stored["seconds"]
-    changed = (old_seconds >= affected_from) & (old_seconds <= affected_to)
+    changed = stored["affected"].copy()
     changed &= (
         np.any([stored[name] != flags[name][:count] for name in QC_COLUMNS], axis=0)
         if count
@@ -590,8 +821,17 @@ def _quality_control(
     return new_reading_flags, changes
 
 
-def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
-    """Insert rows, skipping any that a concurrent request stored first.
+def _column_chunks(columns: Mapping[str, list[Any]], size: int) -> list[dict[str, list[Any]]]:
+    count = len(next(iter(columns.values())))
+    return [
+        {name: values[start : start + size] for name, values in columns.items()}
+        for start in range(0, count, size)
+    ]
+
+
+def _insert_new(session: Session, columns: Mapping[str, list[Any]]) -> dict[dt.datetime, int]:
+    """Insert the rows given as columns (name to one value per row, all the same length),
+    skipping any that a concurrent request stored first.
 
     Returns the id of every row this call stored, by observed_at (unique per station
     and source).
@@ -600,35 +840,43 @@ def _insert_new(session: Session, rows: list[dict[str, Any]]) -> dict[dt.datetim
     dialect = connection.dialect.name
     stored: dict[dt.datetime, int] = {}
     if dialect == "postgresql":
-        for chunk in _chunks(rows, POSTGRESQL_INSERT_CHUNK):
-            for row_id, observed_at in _insert_postgresql(connection, list(chunk)):
+        for chunk in _column_chunks(columns, POSTGRESQL_INSERT_CHUNK):
+            for row_id, observed_at in _insert_postgresql(connection, chunk):
                 stored[observed_at] = row_id
         return stored
     if dialect != "sqlite":  # pragma: no cover - the service supports these two databases
         raise RuntimeError(f"unsupported database dialect {dialect!r}")
 
-    for chunk in _chunks(rows, INSERT_CHUNK):
-        stored.update(_insert_sqlite(connection, list(chunk)))
+    for chunk in _column_chunks(columns, INSERT_CHUNK):
+        stored.update(_insert_sqlite(connection, chunk))
     return stored
 
 
+_MICROSECOND = dt.timedelta(microseconds=1)
+
+
 def _sqlite_time_texts(values: list[dt.datetime], process: Callable[[Any], Any]) -> list[Any]:
-    """The stored text of each aware time: one C call per value instead of two processors.
+    """The stored text of each aware time, formatted by numpy a column at a time.
 
     The unique index compares this text, so it must be exactly what the column type
-    writes; the first value is checked against the type's own processor, and any
-    difference sends every value through the processor instead.
+    writes (naive UTC, ``YYYY-MM-DD HH:MM:SS.ffffff``); the first and last values are
+    checked against the type's own processor, and any difference sends every value
+    through the processor instead.
     """
-    texts = [
-        value.astimezone(dt.UTC).replace(tzinfo=None).isoformat(" ", "microseconds")
-        for value in values
-    ]
-    if texts and texts[0] != process(values[0]):
+    if not values:
+        return []
+    micros = np.array([(value - _EPOCH) // _MICROSECOND for value in values], dtype=np.int64)
+    texts = np.datetime_as_string(micros.astype("datetime64[us]"), unit="us").astype("S26")
+    texts.view("S1").reshape(-1, 26)[:, 10] = b" "  # ISO's "T" as the column writes it
+    written = texts.astype("U26").tolist()
+    if written[0] != process(values[0]) or written[-1] != process(values[-1]):
         return [process(value) for value in values]
-    return texts
+    return written
 
 
-def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[dt.datetime, int]:
+def _insert_sqlite(
+    connection: Connection, columns: Mapping[str, list[Any]]
+) -> dict[dt.datetime, int]:
     """The driver's executemany of ``INSERT ... ON CONFLICT DO NOTHING``, then our new rows.
 
     The values go through each column type's own bind processor once per column, so
@@ -639,25 +887,25 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     The rows this call stored are the ones with a rowid above the largest before it:
     the transaction holds SQLite's write lock from its first write (the service begins
     IMMEDIATE), so no other writer interleaves, and SQLite gives a new row the largest
-    rowid plus one.
+    rowid plus one. When every row went in, those rowids are the next ``count`` in
+    order; otherwise they are read back with their times.
     """
     table = Reading.__table__
     dialect = connection.dialect
-    names = list(rows[0])
-    columns: list[list[Any]] = []
+    names = list(columns)
+    count = len(columns["observed_at"])
+    bound: list[list[Any]] = []
     for name in names:
-        values = [row[name] for row in rows]
+        values = columns[name]
         process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
         if process is None:
-            columns.append(values)
+            bound.append(values)
         elif name == "received_at":  # one ingest time for the whole request
-            columns.append([process(values[0])] * len(values))
+            bound.append([process(values[0])] * len(values))
         elif name == "observed_at":
-            columns.append(_sqlite_time_texts(values, process))
+            bound.append(_sqlite_time_texts(values, process))
         else:
-            columns.append([process(v) for v in values])
-    written = columns[names.index("observed_at")]
-    by_text = dict(zip(written, (row["observed_at"] for row in rows), strict=True))
+            bound.append(list(map(process, values)))
     statement = (
         f"INSERT INTO {table.name} ({', '.join(names)}) "
         f"VALUES ({', '.join('?' for _ in names)}) ON CONFLICT DO NOTHING"
@@ -668,13 +916,20 @@ def _insert_sqlite(connection: Connection, rows: list[dict[str, Any]]) -> dict[d
     try:
         cursor.execute(f"SELECT coalesce(max(id), 0) FROM {table.name}")
         (before,) = cursor.fetchone()
-        cursor.executemany(statement, zip(*columns, strict=True))
-        if before >= 2**63 - 1 - len(rows):  # pragma: no cover - SQLite would pick random rowids
+        cursor.executemany(statement, zip(*bound, strict=True))
+        if before >= 2**63 - 1 - count:  # pragma: no cover - SQLite would pick random rowids
             raise RuntimeError("the readings table has run out of rowids")
+        if cursor.rowcount == count:
+            # Every row went in (none was stored first by another request), one rowid
+            # after another in the order given: no need to read them back.
+            return dict(
+                zip(columns["observed_at"], range(before + 1, before + 1 + count), strict=True)
+            )
         cursor.execute(f"SELECT id, observed_at FROM {table.name} WHERE id > ?", (before,))
         new = cursor.fetchall()
     finally:
         cursor.close()
+    by_text = dict(zip(bound[names.index("observed_at")], columns["observed_at"], strict=True))
     return {by_text[observed_at]: row_id for row_id, observed_at in new}
 
 
@@ -692,16 +947,50 @@ def _unnest_insert(names: tuple[str, ...], dialect: Any) -> Any:
     ).columns(table.c.id, table.c.observed_at)
 
 
-def _insert_postgresql(connection: Connection, rows: list[dict[str, Any]]) -> list[Any]:
+def _insert_postgresql(connection: Connection, columns: Mapping[str, list[Any]]) -> list[Any]:
     """One INSERT ... SELECT FROM unnest(arrays): one parameter per column, not per value.
 
     psycopg parses every placeholder of a statement in Python, so a multi-row VALUES with
     150,000 placeholders spends seconds there; thirty arrays cost nothing.
     """
-    names = list(rows[0])
-    statement = _unnest_insert(tuple(names), connection.dialect)
-    parameters = {name: [row[name] for row in rows] for name in names}
-    return list(connection.execute(statement, parameters).all())
+    statement = _unnest_insert(tuple(columns), connection.dialect)
+    return list(connection.execute(statement, dict(columns)).all())
+
+
+class _RowReadings(Sequence[Any]):
+    """Stored rows (by position in the insert's columns) as objects with the readings'
+    attributes and ``id``, for the alert rules; made when first read, since a station
+    without rules never reads them."""
+
+    def __init__(
+        self,
+        columns: Mapping[str, list[Any]],
+        positions: list[int],
+        ids: Mapping[dt.datetime, int],
+    ) -> None:
+        self._columns = columns
+        self._positions = positions
+        self._ids = ids
+        self._made: list[SimpleNamespace] | None = None
+
+    def _objects(self) -> list[SimpleNamespace]:
+        if self._made is None:
+            names = list(self._columns)
+            made = []
+            for position in self._positions:
+                row = {name: self._columns[name][position] for name in names}
+                made.append(SimpleNamespace(**row, id=self._ids[row["observed_at"]]))
+            self._made = made
+        return self._made
+
+    def __len__(self) -> int:
+        return len(self._positions)
+
+    def __getitem__(self, index: Any) -> Any:
+        return self._objects()[index]
+
+    def __iter__(self) -> Iterator[Any]:
+        return iter(self._objects())
 
 
 def ingest_readings(
@@ -742,10 +1031,10 @@ def ingest_readings(
     result = IngestResult()
     candidates: list[_Candidate] = []
     for position, validated in enumerate(validate_readings(items, now=now)):
-        if isinstance(validated, ReadingIn):
-            candidates.append(_Candidate(index=index_offset + position, reading=validated))
-        else:
+        if isinstance(validated, list):  # the sentences saying what is wrong
             result.reject(index_offset + position, validated)
+        else:
+            candidates.append(_Candidate(index=index_offset + position, reading=validated))
 
     _convert_alkalinity(candidates)
     candidates = _deduplicate_batch(candidates, result)
@@ -758,13 +1047,17 @@ def ingest_readings(
         result.rejected.sort(key=lambda item: item.index)
         return result
 
+    # One order for every request, so that two inserting the same readings wait for each
+    # other on the unique index instead of deadlocking; every column below follows it.
+    candidates.sort(key=lambda candidate: candidate.reading.observed_at)
     site = session.get(Site, station.site_id)
     carbonic = site.carbonic_constants if site is not None else "lueker2000"
-    temperature = np.array([_float_or_nan(c.reading.temperature_c) for c in candidates])
-    salinity = np.array([_float_or_nan(c.reading.salinity) for c in candidates])
-    ph = np.array([_float_or_nan(c.reading.ph) for c in candidates])
+    # Validated values are floats or None; numpy makes None NaN.
+    temperature = np.array([c.reading.temperature_c for c in candidates], dtype=float)
+    salinity = np.array([c.reading.salinity for c in candidates], dtype=float)
+    ph = np.array([c.reading.ph for c in candidates], dtype=float)
     scales = [c.reading.ph_scale for c in candidates]
-    alkalinity_input = np.array([_float_or_nan(c.alkalinity_input) for c in candidates])
+    alkalinity_input = np.array([c.alkalinity_input for c in candidates], dtype=float)
     alkalinity, u_alkalinity, alkalinity_source = _alkalinity_used(candidates, station)
     limits = _qc_limits(station)
     sensor_fault = np.zeros(len(candidates), dtype=bool)
@@ -810,7 +1103,22 @@ def ingest_readings(
             None if v != v else v for v in np.where(np.isfinite(values), values, np.nan).tolist()
         ]
 
-    per_row = {
+    readings = [c.reading for c in candidates]
+    count = len(readings)
+    # Column by column, as the insert binds them: a Python statement per value costs more
+    # than the values' chemistry.
+    columns: dict[str, list[Any]] = {
+        "station_pk": [station.pk] * count,
+        "source": [source] * count,
+        "reading_id": [r.reading_id for r in readings],
+        # In UTC, as the database gives it back (the alert rules read these rows).
+        "observed_at": [r.observed_at.astimezone(dt.UTC) for r in readings],
+        "received_at": [now] * count,
+        "temperature_c": [r.temperature_c for r in readings],
+        "salinity": [r.salinity for r in readings],
+        "ph": [r.ph for r in readings],
+        "ph_scale": scales,
+        "alkalinity_input_umol_kg": [c.alkalinity_input for c in candidates],
         "alkalinity_used_umol_kg": finite(alkalinity),
         "alkalinity_source": alkalinity_source,
         "chemistry_version": [
@@ -819,30 +1127,7 @@ def ingest_readings(
         **{name: finite(derived[name]) for name in DERIVED_COLUMNS},
         **{name: flags[name].astype(int).tolist() for name in QC_COLUMNS},
     }
-    per_row_names = list(per_row)
-    rows: list[dict[str, Any]] = []
-    for candidate, values in zip(candidates, zip(*per_row.values(), strict=True), strict=True):
-        reading = candidate.reading
-        row: dict[str, Any] = {
-            "station_pk": station.pk,
-            "source": source,
-            "reading_id": reading.reading_id,
-            # In UTC, as the database gives it back (the alert rules read these rows).
-            "observed_at": reading.observed_at.astimezone(dt.UTC),
-            "received_at": now,
-            "temperature_c": reading.temperature_c,
-            "salinity": reading.salinity,
-            "ph": reading.ph,
-            "ph_scale": reading.ph_scale,
-            "alkalinity_input_umol_kg": candidate.alkalinity_input,
-        }
-        row.update(zip(per_row_names, values, strict=True))
-        rows.append(row)
-
-    # One order for every request, so that two inserting the same readings wait for each
-    # other on the unique index instead of deadlocking.
-    rows.sort(key=lambda row: row["observed_at"])
-    inserted = _insert_new(session, rows)
+    inserted = _insert_new(session, columns)
     raced = [c for c in candidates if c.reading.observed_at not in inserted]
     if raced:
         # Another request stored these between our check and our insert.
@@ -865,14 +1150,18 @@ def ingest_readings(
     session.flush()
     # The alert rules read the new readings' values; the rows just written hold them, so
     # they are handed over as they are instead of loaded back as ORM objects.
-    passed = [
-        SimpleNamespace(
-            **row,
-            id=inserted[row["observed_at"]],
-        )
-        for row in rows
-        if row["observed_at"] in inserted and row["qc_overall"] != int(QcFlag.FAIL)
-    ]
+    failed = int(QcFlag.FAIL)
+    passed = _RowReadings(
+        columns,
+        [
+            index
+            for index, (observed_at, overall) in enumerate(
+                zip(columns["observed_at"], columns["qc_overall"], strict=True)
+            )
+            if observed_at in inserted and overall != failed
+        ],
+        inserted,
+    )
     if passed:
         from app.alerts.evaluation import evaluate_after_ingest
 

@@ -498,6 +498,8 @@ def flat_line_test(
         same = np.zeros(series.size, dtype=bool)
         same[lag:] = np.abs(series[lag:] - series[:-lag]) < tolerance
         still_flat &= same
+        if not still_flat.any():
+            break  # no value is flat this far back, so none is further back: repeats are final
         repeats += still_flat
     history = np.arange(series.size)
     series_flags = np.full(series.size, QcFlag.NOT_EVALUATED, dtype=np.int8)

@@ -12,7 +12,7 @@ from sqlalchemy.orm import Session
 
 from app.auth.dependencies import Principal, ReaderDep, require_role
 from app.db import SessionDep, utcnow
-from app.limits import RateLimitedDeviceDep
+from app.limits import ParsedJsonRoute, RateLimitedDeviceDep
 from app.readings import queries
 from app.readings.chemistry_api import ChemistrySolveIn, ChemistrySolveOut, solve_sample
 from app.readings.ingest import ingest_readings
@@ -55,14 +55,6 @@ _BODY_SCHEMA = {
 }
 
 
-@router.post(
-    "/readings",
-    response_model=IngestSummary,
-    summary="Post sensor readings (device key)",
-    openapi_extra={
-        "requestBody": {"required": True, "content": {"application/json": {"schema": _BODY_SCHEMA}}}
-    },
-)
 def post_readings(
     principal: RateLimitedDeviceDep,
     session: SessionDep,
@@ -117,6 +109,22 @@ def post_readings(
     return IngestSummary(
         accepted=result.accepted, duplicates=result.duplicates, rejected=result.rejected
     )
+
+
+# Added here rather than by decorator, to give the route its own class: the body as
+# StrictJsonMiddleware parsed it (checking for repeated keys), not a second parse of the
+# same bytes.
+router.add_api_route(
+    "/readings",
+    post_readings,
+    methods=["POST"],
+    route_class_override=ParsedJsonRoute,
+    response_model=IngestSummary,
+    summary="Post sensor readings (device key)",
+    openapi_extra={
+        "requestBody": {"required": True, "content": {"application/json": {"schema": _BODY_SCHEMA}}}
+    },
+)
 
 
 def _refusal_sentence(rejected: list[RejectedItem]) -> str:

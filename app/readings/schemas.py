@@ -9,9 +9,12 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import re
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any, Literal
 
+import numpy as np
 from pydantic import (
     BaseModel,
     ConfigDict,
@@ -194,18 +197,156 @@ def validate_reading(item: Any, *, now: dt.datetime) -> ReadingIn | list[str]:
 
 _READING_LIST = TypeAdapter(list[ReadingIn])
 
+_READING_FIELDS = frozenset(ReadingIn.model_fields)
+_NUMBER_FIELDS = ("temperature_c", "salinity", "ph", "alkalinity_umol_kg", "alkalinity_mg_l_caco3")
+# The usual shape of a device's time: ISO 8601 with seconds, up to microseconds and an
+# offset (ASCII digits only: a regex \d would take other scripts' digits).
+_PLAIN_TIME = re.compile(
+    r"[0-9]{4}-[0-9]{2}-[0-9]{2}T[0-9]{2}:[0-9]{2}:[0-9]{2}(?:\.[0-9]{1,6})?"
+    r"(?:Z|[+-][0-9]{2}:[0-9]{2})"
+)
 
-def validate_readings(items: Sequence[Any], *, now: dt.datetime) -> list[ReadingIn | list[str]]:
+
+@dataclass(slots=True)
+class CheckedReading:
+    """A reading that passed every check of ``ReadingIn``, with the same values.
+
+    Made by ``validate_readings`` for the usual item (a JSON object of numbers in range
+    and a plain ISO time), about ten times cheaper than the model; the fields and their
+    meaning are those of ``ReadingIn``.
+    """
+
+    reading_id: str | None
+    observed_at: dt.datetime
+    temperature_c: float | None
+    salinity: float | None
+    ph: float | None
+    ph_scale: str | None
+    alkalinity_umol_kg: float | None
+    alkalinity_mg_l_caco3: float | None
+
+
+_NUMBER_TYPES = frozenset({float, int, type(None)})
+
+
+def _number_column(
+    column: list[Any], low: float, high: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A number field of every item: (values with NaN where absent, present, usable).
+
+    Usable: absent, or a JSON number (int or float, not bool) that is finite and within
+    [low, high]. Everything else (bool, text, NaN, a huge int) is left to the model.
+    """
+    present = np.array([v is not None for v in column], dtype=bool)
+    values: np.ndarray | None = None
+    if set(map(type, column)) <= _NUMBER_TYPES:
+        try:
+            values = np.array(column, dtype=float)  # None becomes NaN
+        except OverflowError:  # an int too large for a double
+            values = None
+    if values is None:
+        # A float as it is; an int only within the range; anything else NaN (unusable).
+        values = np.array(
+            [
+                v if type(v) is float else v if type(v) is int and low <= v <= high else np.nan
+                for v in column
+            ],
+            dtype=float,
+        )
+    in_range = (values >= low) & (values <= high)  # NaN and infinities fail both
+    return values, present, in_range | ~present
+
+
+def _plainly_valid(items: Sequence[Any], now: dt.datetime) -> list[CheckedReading | None]:
+    """Each item as a ``CheckedReading`` when it plainly passes ``ReadingIn``, else None.
+
+    Only the unambiguous cases pass here: a dict of known fields; numbers that are
+    JSON numbers (int or float, not bool) and finite within ``READING_RANGES``; a
+    reading_id of 1 to 128 characters; ph_scale one of ``PH_SCALES``; observed_at an
+    aware datetime or a plain ISO 8601 text with an offset, at most ``MAX_FUTURE``
+    ahead of ``now``; and the model's consistency rules. Anything else (including
+    values pydantic would coerce, such as numbers in strings) is None and goes through
+    the model, which says what is wrong in its own sentences. Checked a field at a time
+    over all items: a Python statement per value and field costs more than the model.
+    """
+    usable = np.array(
+        [type(item) is dict and item.keys() <= _READING_FIELDS for item in items], dtype=bool
+    )
+    rows = [item if ok else {} for item, ok in zip(items, usable.tolist(), strict=True)]
+    numbers: dict[str, list[float | None]] = {}
+    present: dict[str, np.ndarray] = {}
+    for name in _NUMBER_FIELDS:
+        low, high, _unit = READING_RANGES[name]
+        values, present[name], ok = _number_column([row.get(name) for row in rows], low, high)
+        usable &= ok
+        numbers[name] = np.where(present[name], values, None).tolist()
+
+    reading_ids = [row.get("reading_id") for row in rows]
+    usable &= np.array(
+        [v is None or (type(v) is str and 1 <= len(v) <= 128) for v in reading_ids], dtype=bool
+    )
+    scales = [row.get("ph_scale") for row in rows]
+    usable &= np.array(
+        [v is None or (type(v) is str and v in PH_SCALES) for v in scales], dtype=bool
+    )
+    has_scale = np.array([v is not None for v in scales], dtype=bool)
+    # The model's consistency rules, as in ReadingIn._consistent.
+    usable &= ~(present["alkalinity_umol_kg"] & present["alkalinity_mg_l_caco3"])
+    usable &= ~(present["ph"] & ~has_scale)
+    usable &= present["temperature_c"] | present["salinity"] | present["ph"]
+    usable &= ~present["alkalinity_mg_l_caco3"] | (present["temperature_c"] & present["salinity"])
+
+    horizon = now + MAX_FUTURE
+    out: list[CheckedReading | None] = [None] * len(rows)
+    for index in np.flatnonzero(usable).tolist():
+        observed = rows[index].get("observed_at")
+        try:
+            if type(observed) is str and _PLAIN_TIME.fullmatch(observed):
+                moment = dt.datetime.fromisoformat(observed)
+            elif type(observed) is dt.datetime and observed.utcoffset() is not None:
+                moment = observed
+            else:
+                continue
+            if moment > horizon:
+                continue
+            moment = moment.astimezone(dt.UTC)
+        except (ValueError, OverflowError):
+            continue
+        out[index] = CheckedReading(
+            reading_ids[index],
+            moment,
+            numbers["temperature_c"][index],
+            numbers["salinity"][index],
+            numbers["ph"][index],
+            scales[index],
+            numbers["alkalinity_umol_kg"][index],
+            numbers["alkalinity_mg_l_caco3"][index],
+        )
+    return out
+
+
+def validate_readings(
+    items: Sequence[Any], *, now: dt.datetime
+) -> list[ReadingIn | CheckedReading | list[str]]:
     """``validate_reading`` of every item, in order.
 
-    The usual request is all good: one validation of the whole list costs about half of
-    a validation per item. Only a list with a problem is gone through item by item, for
-    each item's own sentences.
+    The usual item is checked column by column (``_plainly_valid``); the rest go
+    through the model: as one list when they are all good (about half the cost of a
+    validation per item), else item by item for each item's own sentences.
     """
-    try:
-        return list(_READING_LIST.validate_python(items, context={"now": now}))
-    except ValidationError:
-        return [validate_reading(item, now=now) for item in items]
+    checked: list[ReadingIn | CheckedReading | list[str] | None] = list(_plainly_valid(items, now))
+    rest = [index for index, reading in enumerate(checked) if reading is None]
+    if rest:
+        others = [items[index] for index in rest]
+        try:
+            validated: list[ReadingIn | list[str]] = list(
+                _READING_LIST.validate_python(others, context={"now": now})
+            )
+        except ValidationError:
+            validated = [validate_reading(item, now=now) for item in others]
+        for index, reading in zip(rest, validated, strict=True):
+            checked[index] = reading
+    return checked  # type: ignore[return-value]
 
 
 def readings_from_body(payload: Any) -> list[Any]:

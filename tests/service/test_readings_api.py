@@ -186,6 +186,43 @@ def test_repeats_inside_one_request(client, session, fixed_station, device_key):
     assert len(stored(session, fixed_station)) == 1
 
 
+def test_large_requests_settle_retries_conflicts_and_backfills_like_small_ones(
+    client, session, fixed_station, device_key
+):
+    # More than ingest.SMALL_REQUEST items: the stored matches are looked up by time span
+    # and id lists (on SQLite on the driver's own cursor), not in the one small query.
+    count = 3 * ingest_module.SMALL_REQUEST
+    first = [reading(10 + 2 * n, reading_id=f"big-{n}") for n in range(count)]
+    body = {"readings": first}
+    assert client.post("/api/v1/readings", json=body, headers=auth(device_key)).json() == {
+        "accepted": count,
+        "duplicates": 0,
+        "rejected": [],
+    }
+    again = client.post("/api/v1/readings", json=body, headers=auth(device_key)).json()
+    assert again == {"accepted": 0, "duplicates": count, "rejected": []}
+
+    mixed = [
+        reading(10, reading_id="big-0", ph=7.9),  # same id and time, other pH
+        reading(12.5, reading_id="big-1"),  # same id, other time
+        reading(14, reading_id="other"),  # same time as big-2, other id
+        # Backfills between stored readings: the span is crowded with stored rows.
+        *(reading(11 + 2 * n, reading_id=f"fill-{n}") for n in range(count)),
+    ]
+    answer = client.post("/api/v1/readings", json={"readings": mixed}, headers=auth(device_key))
+    answer = answer.json()
+    assert answer["accepted"] == count and answer["duplicates"] == 0
+    errors = {item["index"]: " ".join(item["errors"]) for item in answer["rejected"]}
+    assert sorted(errors) == [0, 1, 2]
+    assert "reading_id 'big-0'" in errors[0] and "never overwritten" in errors[0]
+    assert "reading_id 'big-1'" in errors[1]
+    assert "observed_at" in errors[2]
+    rows = stored(session, fixed_station)
+    assert len(rows) == 2 * count
+    assert all(r.ph == 7.71 for r in rows)
+    assert len({r.reading_id for r in rows}) == 2 * count
+
+
 def test_bad_items_are_rejected_with_sentences_good_items_stored(
     client, session, fixed_station, device_key
 ):
