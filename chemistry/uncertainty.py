@@ -29,7 +29,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from chemistry.errors import ChemistryInputError, check_nonnegative
-from chemistry.solver import solve
+from chemistry.solver import CarbonateState, solve
 from chemistry.transforms import at_temperature as _carry_to_temperature
 
 # Standard uncertainties of the constants, Orr2018, table 1
@@ -129,6 +129,7 @@ def standard_uncertainty(
     u_pco2: Any = 0.0,
     constant_uncertainties: Mapping[str, float] | None = ORR2018_CONSTANT_UNCERTAINTIES,
     at_temperature: Any = None,
+    base: CarbonateState | None = None,
 ) -> dict[str, np.ndarray]:
     """Standard uncertainty of every numeric output of :func:`~chemistry.solver.solve`.
 
@@ -156,6 +157,9 @@ def standard_uncertainty(
     at_temperature : array_like, optional
         Temperature (deg C) to which the water is carried in a closed system
         before the outputs are taken (the tank prediction); default none.
+    base : CarbonateState, optional
+        ``solve`` of exactly these inputs and options, when the caller has it
+        already: it is used as the unperturbed water instead of solving again.
 
     Returns
     -------
@@ -218,8 +222,9 @@ def standard_uncertainty(
         if value is not None
     }
     # Solving the unperturbed water first validates the inputs with their
-    # own names and indices, before any stacking.
-    base = solve(**{name: inputs[name] for name in given}, **options)
+    # own names and indices, before any stacking (a caller's ``base`` did that).
+    if base is None:
+        base = solve(**{name: inputs[name] for name in given}, **options)
     if at_temperature is not None:
         base = _carry_to_temperature(base, at_temperature)
     base_outputs = base.as_dict()

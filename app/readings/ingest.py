@@ -445,7 +445,9 @@ def _derive(
             carbonic=carbonic,
         )
         state = solve(**inputs)
-        uncertainty = standard_uncertainty(**inputs, u_ph=u_ph, u_alkalinity=u_alkalinity[index])
+        uncertainty = standard_uncertainty(
+            **inputs, u_ph=u_ph, u_alkalinity=u_alkalinity[index], base=state
+        )
         values = {
             "ph_total": state.ph_total,
             "dic_umol_kg": state.dic,

@@ -143,6 +143,19 @@ def test_uncertainty_at_tank_temperature_and_array_shape():
     assert float(u["omega_aragonite"][1]) == pytest.approx(by_hand, rel=1e-3)
 
 
+def test_a_given_base_state_gives_the_same_uncertainty():
+    # The caller's own solve of the same inputs stands in for the unperturbed water; the
+    # answer is the one standard_uncertainty finds by solving it itself.
+    ph = np.array([7.7, 7.8, 7.9])
+    inputs = {"temperature": 12.0, "salinity": 31.0, "ph": ph, "alkalinity": 2150.0}
+    own = standard_uncertainty(**inputs, u_ph=0.05, u_alkalinity=10.0)
+    given = standard_uncertainty(**inputs, u_ph=0.05, u_alkalinity=10.0, base=solve(**inputs))
+    assert own.keys() == given.keys()
+    for key in own:
+        np.testing.assert_array_equal(given[key], own[key], err_msg=key)
+    assert float(given["omega_aragonite"][1]) > 0.0
+
+
 def test_zero_uncertainty_gives_zero():
     u = standard_uncertainty(**WATER, constant_uncertainties=None)
     assert all(np.all(value == 0) for value in u.values())
