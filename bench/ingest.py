@@ -8,9 +8,9 @@ column, derived chemistry and QC flags included), go into a table of the same sh
 file) with plain ``sqlite3`` ``executemany`` and a commit per batch, under the same
 pragmas the service sets (WAL, synchronous NORMAL).
 
-Goal (issue 6): the service stores at least 0.2 of the plain rate. Both rates are the median
-of three whole passes (each its own database, server and plain insert), since on a shared
-machine either moves by a third from one run to the next.
+Goal (issue 6): the service stores at least 0.2 of the plain rate. Three whole passes, each
+its own database, server and plain insert: on a shared machine both rates move by a third from
+one run to the next, together, so the figure is the median of the three passes' ratios.
 
 ``python -m bench ingest`` (``--quick``: fewer batches).
 """
@@ -127,15 +127,20 @@ def _one_pass() -> tuple[float, float, float]:
 def main() -> bool:
     # Whole passes, each with its own database, server and plain insert: on a shared machine
     # either rate moves by a third from one run to the next, so each is the median of PASSES.
+    # The two rates of a pass move together with the machine, so the ratio is taken within
+    # each pass (the same run, as the goal says) and the median of those is the figure.
     passes = [_one_pass() for _ in range(PASSES)]
     service_rate = statistics.median(p[0] for p in passes)
     plain_rate = statistics.median(p[1] for p in passes)
     batch = statistics.median(p[2] for p in passes)
-    ratio = service_rate / plain_rate
+    ratio = statistics.median(p[0] / p[1] for p in passes)
     met = ratio >= GOAL_RATIO
     print(f"{load_average()}")
     for number, (service, plain, _) in enumerate(passes, start=1):
-        print(f"pass {number}: service {service:,.0f}, plain {plain:,.0f} readings/s")
+        print(
+            f"pass {number}: service {service:,.0f}, plain {plain:,.0f} readings/s, "
+            f"ratio {service / plain:.3f}"
+        )
     print(
         f"service: {BATCH * BATCHES - 1} readings in batches of {BATCH} over HTTP, median of "
         f"{PASSES} passes {service_rate:,.0f} readings/s (median batch {batch * 1000:.0f} ms)"
@@ -144,7 +149,8 @@ def main() -> bool:
         f"plain sqlite3 executemany, same rows and table shape: median {plain_rate:,.0f} "
         "readings/s"
     )
-    print(f"ratio {ratio:.3f} (goal >= {GOAL_RATIO}): {'met' if met else 'MISSED'}")
+    print(f"ratio, median of the passes' {ratio:.3f} (goal >= {GOAL_RATIO}): "
+          f"{'met' if met else 'MISSED'}")
     return met
 
 
