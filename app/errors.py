@@ -19,6 +19,17 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from app.validation_sentences import join_sentences, sentences_for
 
+
+def no_site(site_id: str) -> str:
+    """The one sentence for a site id that does not exist (API, web pages, CLI alike)."""
+    return f"There is no site with id {site_id!r}."
+
+
+def site_has_no(site_id: str, kind: str, item_id: object) -> str:
+    """The one sentence for a station, tank, rule, alert or batch missing from a site."""
+    return f"Site {site_id!r} has no {kind} with id {item_id!r}."
+
+
 # A row id in a path: positive and within a signed 64-bit integer, the widest integer
 # column of SQLite and PostgreSQL (a larger number would fail in the driver, not here).
 RowId = Annotated[int, Path(ge=1, le=2**63 - 1, description="A positive integer id.")]

@@ -251,7 +251,7 @@ def list_alerts(
 def acknowledge_alert(alert_id: RowId, session: SessionDep, principal: ReaderDep) -> AlertPublic:
     alert = session.get(Alert, alert_id)
     if alert is None:
-        raise HTTPException(status_code=404, detail=f"No alert with id {alert_id}.")
+        raise HTTPException(status_code=404, detail=f"There is no alert with id {alert_id}.")
     with _refusals_answered(session, refused=status.HTTP_409_CONFLICT):
         rules_module.acknowledge_alert(
             session=session, alert=alert, who=f"{principal.label} (key {principal.key_id})"
@@ -270,7 +270,9 @@ def resend_notification(
 ) -> NotificationPublic:
     row = session.get(OutboxMessage, notification_id)
     if row is None:
-        raise HTTPException(status_code=404, detail=f"No notification with id {notification_id}.")
+        raise HTTPException(
+            status_code=404, detail=f"There is no notification with id {notification_id}."
+        )
     with _refusals_answered(session, refused=status.HTTP_409_CONFLICT):
         rules_module.requeue_notification(session=session, row=row, now=utcnow())
     session.commit()

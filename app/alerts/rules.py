@@ -19,6 +19,7 @@ from app.alerts.schemas import (
     AlertRuleUpdate,
 )
 from app.db import utcnow
+from app.errors import no_site, site_has_no
 from app.sites.models import Site, Station, Tank
 
 # Default tank rules. The clear level sits 0.2 above the floor so that water hovering at the
@@ -79,14 +80,14 @@ def _check_thresholds(values: dict[str, Any]) -> None:
 def get_site(*, session: Session, site_id: str) -> Site:
     site = session.get(Site, site_id)
     if site is None:
-        raise NotFoundError(f"No site with id '{site_id}'.")
+        raise NotFoundError(no_site(site_id))
     return site
 
 
 def get_tank(*, session: Session, site_id: str, tank_id: str) -> Tank:
     tank = session.scalars(select(Tank).where(Tank.site_id == site_id, Tank.id == tank_id)).first()
     if tank is None:
-        raise NotFoundError(f"No tank with id '{tank_id}' in site '{site_id}'.")
+        raise NotFoundError(site_has_no(site_id, "tank", tank_id))
     return tank
 
 
@@ -95,7 +96,7 @@ def get_station(*, session: Session, site_id: str, station_id: str) -> Station:
         select(Station).where(Station.site_id == site_id, Station.id == station_id)
     ).first()
     if station is None:
-        raise NotFoundError(f"No station with id '{station_id}' in site '{site_id}'.")
+        raise NotFoundError(site_has_no(site_id, "station", station_id))
     return station
 
 
@@ -206,7 +207,7 @@ def list_rules(*, session: Session, site_id: str) -> list[AlertRule]:
 def get_rule(*, session: Session, site_id: str, rule_id: int) -> AlertRule:
     rule = session.get(AlertRule, rule_id)
     if rule is None or rule.site_id != site_id or rule.deleted_at is not None:
-        raise NotFoundError(f"No alert rule with id {rule_id} in site '{site_id}'.")
+        raise NotFoundError(site_has_no(site_id, "alert rule", rule_id))
     return rule
 
 

@@ -10,6 +10,7 @@ from app.auth.dependencies import AdminDep, ReaderDep
 from app.batches import service
 from app.batches.schemas import BatchCreate, BatchExposure, BatchPublic
 from app.db import SessionDep, utcnow
+from app.errors import site_has_no
 from app.sites.router import site_or_404
 
 router = APIRouter(prefix="/sites/{site_id}/batches", tags=["larval batches"])
@@ -57,9 +58,7 @@ def get_exposure(
     site = site_or_404(session, site_id)
     batch = service.get_batch(session=session, site_id=site_id, batch_id=batch_id)
     if batch is None:
-        raise HTTPException(
-            status.HTTP_404_NOT_FOUND, f"Site {site_id!r} has no batch with id {batch_id!r}."
-        )
+        raise HTTPException(status.HTTP_404_NOT_FOUND, site_has_no(site_id, "batch", batch_id))
     exposure = service.batch_exposure(session=session, site=site, batch=batch, now=utcnow())
     if output == "csv":
         return Response(

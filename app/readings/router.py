@@ -25,8 +25,8 @@ from app.readings.schemas import (
     RejectedItem,
     readings_from_body,
 )
-from app.sites import service as sites_service
 from app.sites.models import Site, Station
+from app.sites.router import station_or_404
 from app.timefmt import json_body
 
 router = APIRouter(tags=["readings"])
@@ -134,15 +134,8 @@ def _refusal_sentence(rejected: list[RejectedItem]) -> str:
 
 
 def _station_or_404(session: Session, site_id: str, station_id: str) -> Station:
-    if sites_service.get_site(session=session, site_id=site_id) is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, detail=f"There is no site {site_id!r}.")
-    station = sites_service.get_station(session=session, site_id=site_id, station_id=station_id)
-    if station is None:
-        raise HTTPException(
-            status.HTTP_404_NOT_FOUND,
-            detail=f"Site {site_id!r} has no station with id {station_id!r}.",
-        )
-    return station
+    # The lookup every router under a site shares, so a missing site or station reads the same.
+    return station_or_404(session, site_id, station_id)
 
 
 @router.get(

@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 
 from app.auth.dependencies import AdminDep, ReaderDep
 from app.db import SessionDep
+from app.errors import no_site, site_has_no
 from app.sites import service
 from app.sites.models import Device, Site, Station, Tank
 from app.sites.schemas import (
@@ -44,7 +45,7 @@ def _not_found(detail: str) -> HTTPException:
 def site_or_404(session: Session, site_id: str) -> Site:
     site = service.get_site(session=session, site_id=site_id)
     if site is None:
-        raise _not_found(f"There is no site with id {site_id!r}.")
+        raise _not_found(no_site(site_id))
     return site
 
 
@@ -52,7 +53,7 @@ def station_or_404(session: Session, site_id: str, station_id: str) -> Station:
     site_or_404(session, site_id)
     station = service.get_station(session=session, site_id=site_id, station_id=station_id)
     if station is None:
-        raise _not_found(f"Site {site_id!r} has no station with id {station_id!r}.")
+        raise _not_found(site_has_no(site_id, "station", station_id))
     return station
 
 
@@ -60,7 +61,7 @@ def tank_or_404(session: Session, site_id: str, tank_id: str) -> Tank:
     site_or_404(session, site_id)
     tank = service.get_tank(session=session, site_id=site_id, tank_id=tank_id)
     if tank is None:
-        raise _not_found(f"Site {site_id!r} has no tank with id {tank_id!r}.")
+        raise _not_found(site_has_no(site_id, "tank", tank_id))
     return tank
 
 

@@ -28,6 +28,7 @@ from app.auth.dependencies import Principal
 from app.auth.keys import find_active_key
 from app.auth.models import ApiKey
 from app.db import SessionDep, utcnow
+from app.errors import no_site, site_has_no
 from app.readings.models import Reading
 from app.samples import service as samples_service
 from app.samples.drift import record_sample
@@ -171,7 +172,7 @@ def sign_out(request: Request) -> RedirectResponse:
 def _site_or_404(session: Session, site_id: str) -> Site:
     site = sites_service.get_site(session=session, site_id=site_id)
     if site is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"There is no site with id {site_id!r}.")
+        raise HTTPException(status.HTTP_404_NOT_FOUND, no_site(site_id))
     return site
 
 
@@ -252,7 +253,7 @@ def acknowledge(
     _check_form_token(request, form_token)
     alert = session.get(Alert, alert_id)
     if alert is None or alert.site_id != site_id:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"Site {site_id!r} has no alert {alert_id}.")
+        raise HTTPException(status.HTTP_404_NOT_FOUND, site_has_no(site_id, "alert", alert_id))
     try:
         alert_rules.acknowledge_alert(
             session=session, alert=alert, who=f"{principal.label} (key {principal.key_id}, web)"
@@ -272,7 +273,7 @@ def station_chart(request: Request, site_id: str, station_id: str, session: Sess
     site = _site_or_404(session, site_id)
     station = sites_service.get_station(session=session, site_id=site_id, station_id=station_id)
     if station is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"No station {station_id!r}.")
+        raise HTTPException(status.HTTP_404_NOT_FOUND, site_has_no(site_id, "station", station_id))
     end = utcnow()
     start = end - dt.timedelta(days=CHART_DAYS)
     readings = list(
@@ -325,7 +326,7 @@ def sample_form(request: Request, site_id: str, station_id: str, session: Sessio
     site = _site_or_404(session, site_id)
     station = sites_service.get_station(session=session, site_id=site_id, station_id=station_id)
     if station is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"No station {station_id!r}.")
+        raise HTTPException(status.HTTP_404_NOT_FOUND, site_has_no(site_id, "station", station_id))
     return _sample_page(request, session, principal, site, station, errors=[], saved=None,
                         values={})
 
@@ -354,7 +355,7 @@ async def save_sample(request: Request, site_id: str, station_id: str, session: 
     site = _site_or_404(session, site_id)
     station = sites_service.get_station(session=session, site_id=site_id, station_id=station_id)
     if station is None:
-        raise HTTPException(status.HTTP_404_NOT_FOUND, f"No station {station_id!r}.")
+        raise HTTPException(status.HTTP_404_NOT_FOUND, site_has_no(site_id, "station", station_id))
     values = {name: str(form.get(name, "")).strip() for name in SAMPLE_FIELDS}
     if principal.role != "admin":
         return _sample_page(request, session, principal, site, station, values=values,

@@ -103,6 +103,29 @@ def test_other_errors_have_the_same_detail_shape(client, admin_headers, viewer_h
         assert isinstance(response.json()["detail"], str)
 
 
+def test_a_missing_site_or_station_reads_the_same_from_every_router(client, admin_headers, scene):
+    # One sentence per missing thing, whichever router answers (common practice: one
+    # vocabulary for one condition).
+    for path in (
+        "/api/v1/sites/nowhere",
+        "/api/v1/sites/nowhere/stations/intake/readings",
+        "/api/v1/sites/nowhere/tanks/larvae-1/advice",
+        "/api/v1/sites/nowhere/alert-rules",
+    ):
+        response = client.get(path, headers=admin_headers)
+        assert response.status_code == 404, (path, response.text)
+        assert response.json()["detail"] == "There is no site with id 'nowhere'.", path
+    for path in (
+        f"/api/v1/sites/{SITE}/stations/outfall",
+        f"/api/v1/sites/{SITE}/stations/outfall/readings",
+    ):
+        response = client.get(path, headers=admin_headers)
+        assert response.status_code == 404, (path, response.text)
+        assert response.json()["detail"] == f"Site '{SITE}' has no station with id 'outfall'."
+    response = client.get(f"/api/v1/sites/{SITE}/tanks/larvae-9/advice", headers=admin_headers)
+    assert response.json()["detail"] == f"Site '{SITE}' has no tank with id 'larvae-9'."
+
+
 @pytest.mark.parametrize(
     "bounds, phrase",
     [
