@@ -21,6 +21,8 @@ from contextlib import contextmanager
 
 import numpy as np
 
+from .pairs import INPUT_PAIRS
+
 try:
     from . import _kernel
 except ImportError:  # built without a C compiler
@@ -28,15 +30,8 @@ except ImportError:  # built without a C compiler
 
 __all__ = ["PAIRS", "available", "enabled", "solve_flat", "threads_for", "use_kernel"]
 
-# Order of the pair codes, pH scales and shift columns in _kernel.c.
-PAIRS = (
-    ("ph", "alkalinity"),
-    ("ph", "dic"),
-    ("ph", "pco2"),
-    ("alkalinity", "dic"),
-    ("alkalinity", "pco2"),
-    ("dic", "pco2"),
-)
+# The pair codes of _kernel.c are positions in INPUT_PAIRS; the pH scales as below.
+PAIRS = INPUT_PAIRS
 _SCALES = ("total", "seawater", "free", "nbs")
 _CARBONIC = ("lueker2000", "millero2010")
 OUTPUT_COUNT = 14

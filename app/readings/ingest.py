@@ -702,17 +702,7 @@ def _context_columns_whole(
     else:
         # Core rows straight from the connection: no ORM row processing.
         rows = connection.execute(query, parameters).all()
-    names = (
-        "id",
-        "observed_at",
-        "temperature_c",
-        "salinity",
-        "ph",
-        "alkalinity_input_umol_kg",
-        "alkalinity_source",
-        "omega_aragonite",
-        *QC_COLUMNS,
-    )
+    names = ("id", *_VALUE_NAMES, *QC_COLUMNS)
     if not rows:
         columns: dict[str, Sequence[Any]] = {name: () for name in names}
     else:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -18,15 +19,16 @@ from chemistry import (
     solve,
 )
 from chemistry.constants import vapour_pressure_weiss_price1980
+from chemistry.pairs import INPUT_PAIRS
 
-PAIRS = [
-    ("ph", "alkalinity"),
-    ("ph", "dic"),
-    ("ph", "pco2"),
-    ("alkalinity", "dic"),
-    ("alkalinity", "pco2"),
-    ("dic", "pco2"),
-]
+PAIRS = list(INPUT_PAIRS)
+
+
+def test_the_pairs_are_every_pair_of_the_four_quantities():
+    # The "all six pairs": each two of ph, alkalinity, dic and pco2, once.
+    expected = itertools.combinations(("ph", "alkalinity", "dic", "pco2"), 2)
+    assert sorted(map(sorted, PAIRS)) == sorted(map(sorted, expected))
+    assert len(set(PAIRS)) == 6
 
 # A spread of hatchery-like waters (invented test conditions, not data): cold estuarine to
 # warm oceanic, low to high pH.
