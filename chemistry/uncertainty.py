@@ -29,7 +29,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from chemistry.errors import ChemistryInputError, check_nonnegative
-from chemistry.solver import solve
+from chemistry.solver import CarbonateState, solve
 from chemistry.transforms import at_temperature as _carry_to_temperature
 
 # Standard uncertainties of the constants, Orr2018, table 1
@@ -129,6 +129,7 @@ def standard_uncertainty(
     u_pco2: Any = 0.0,
     constant_uncertainties: Mapping[str, float] | None = ORR2018_CONSTANT_UNCERTAINTIES,
     at_temperature: Any = None,
+    base: CarbonateState | None = None,
 ) -> dict[str, np.ndarray]:
     """Standard uncertainty of every numeric output of :func:`~chemistry.solver.solve`.
 
@@ -156,6 +157,13 @@ def standard_uncertainty(
     at_temperature : array_like, optional
         Temperature (deg C) to which the water is carried in a closed system
         before the outputs are taken (the tank prediction); default none.
+    base : CarbonateState, optional
+        The unperturbed water when the caller has already solved it: what
+        :func:`~chemistry.solver.solve` gives for these inputs and options,
+        carried with :func:`chemistry.transforms.at_temperature` to
+        ``at_temperature`` when that is given. It is used as it is (one
+        solve fewer, the same numbers); the inputs are then validated by
+        the caller's own solve, not again here.
 
     Returns
     -------
@@ -219,9 +227,10 @@ def standard_uncertainty(
     }
     # Solving the unperturbed water first validates the inputs with their
     # own names and indices, before any stacking.
-    base = solve(**{name: inputs[name] for name in given}, **options)
-    if at_temperature is not None:
-        base = _carry_to_temperature(base, at_temperature)
+    if base is None:
+        base = solve(**{name: inputs[name] for name in given}, **options)
+        if at_temperature is not None:
+            base = _carry_to_temperature(base, at_temperature)
     base_outputs = base.as_dict()
     if not plan:
         return {key: np.zeros(np.shape(value)) for key, value in base_outputs.items()}

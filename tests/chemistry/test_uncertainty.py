@@ -191,3 +191,23 @@ def test_chunked_propagation_equals_one_pass(monkeypatch):
     assert one_pass["omega_aragonite"].shape == (7, 2)
     for key, value in one_pass.items():
         np.testing.assert_allclose(chunked[key], value, rtol=1e-12, atol=1e-12, err_msg=key)
+
+
+def test_an_already_solved_base_gives_the_same_uncertainty_with_one_solve_fewer(monkeypatch):
+    # The caller's own solve of the same inputs, carried to the tank temperature, stands in
+    # for the unperturbed solve: the same numbers, and the base is not solved again.
+    import chemistry.uncertainty as module
+
+    kwargs = {**WATER, "u_ph": 0.05, "u_alkalinity": 10.0, "at_temperature": 25.0}
+    without = standard_uncertainty(**kwargs)
+    base = at_temperature(solve(**WATER), 25.0)
+    calls = []
+    real_solve = module.solve
+    monkeypatch.setattr(module, "solve", lambda **kw: calls.append(kw) or real_solve(**kw))
+    with_base = standard_uncertainty(**kwargs, base=base)
+    assert len(calls) == 1  # the stacked perturbations only
+    assert np.shape(calls[0]["ph"]) != ()  # and that one call is the stacked one
+    assert without.keys() == with_base.keys()
+    for key, value in without.items():
+        np.testing.assert_array_equal(with_base[key], value, err_msg=key)
+    assert float(with_base["omega_aragonite"]) > 0
