@@ -250,6 +250,34 @@ def no_data_window_minutes(
     return float(level) if level is not None else DEFAULT_SILENCE_MINUTES
 
 
+def stale_after_by_tank(*, session: Session, tanks: list[Tank]) -> dict[int, float]:
+    """:func:`stale_after_minutes` of several tanks from one query (the status shows every
+    tank of a site): the enabled no-data rules on the tanks or their source stations."""
+    if not tanks:
+        return {}
+    rules = session.execute(
+        select(AlertRule.station_pk, AlertRule.tank_pk, AlertRule.level).where(
+            AlertRule.metric == "no_data",
+            AlertRule.enabled.is_(True),
+            AlertRule.deleted_at.is_(None),
+            or_(
+                AlertRule.station_pk.in_({t.source_station_pk for t in tanks}),
+                AlertRule.tank_pk.in_({t.pk for t in tanks}),
+            ),
+        )
+    ).all()
+    out = {}
+    for tank in tanks:
+        levels = [
+            float(level)
+            for station_pk, tank_pk, level in rules
+            if level is not None
+            and (station_pk == tank.source_station_pk or tank_pk == tank.pk)
+        ]
+        out[tank.pk] = min(levels) if levels else DEFAULT_SILENCE_MINUTES
+    return out
+
+
 def _water(state: Any, uncertainty: float | None, floor: float) -> dict[str, Any]:
     omega = float(state.omega_aragonite)
     result = {

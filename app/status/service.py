@@ -30,6 +30,7 @@ from app.alerts.advice import (
     latest_good_reading,
     predict_tank_water,
     source_description,
+    stale_after_by_tank,
     tank_advice,
 )
 from app.alerts.models import Alert, AlertRule
@@ -449,10 +450,12 @@ def tank_status(
     max_gap: timedelta,
     readings: dict[str, np.ndarray] | None = None,
     latest_good: Reading | bool | None = False,
+    stale_after: float | None = None,
 ) -> dict[str, Any]:
     """A tank's day. ``readings``: its source station's columns from ``window.start -
     max_gap`` to ``window.as_of + max_gap`` (read here when not given); ``latest_good``:
-    the station's latest good reading before ``window.as_of`` (looked up when ``False``)."""
+    the station's latest good reading before ``window.as_of`` (looked up when ``False``);
+    ``stale_after``: the tank's no-data window in minutes (looked up when ``None``)."""
     station = tank.source_station
     if readings is None:
         # One reading either side of the day so that pieces crossing midnight are counted.
@@ -478,7 +481,12 @@ def tank_status(
     advice = None
     if reading is not None:
         advice = tank_advice(
-            session=session, site=site, tank=tank, reading=reading, now=window.as_of
+            session=session,
+            site=site,
+            tank=tank,
+            reading=reading,
+            now=window.as_of,
+            stale_after=stale_after,
         )
     predicted = None
     after_treatment = None
@@ -755,6 +763,7 @@ def site_status(
         latest_good[pk] = latest_good_reading(
             session=session, station_pk=pk, before=window.as_of
         )
+    stale_after = stale_after_by_tank(session=session, tanks=tanks)
     return {
         "site_id": site.id,
         "site_name": site.name,
@@ -781,6 +790,7 @@ def site_status(
                 session=session, site=site, tank=t, window=window, alerts=alerts,
                 max_gap=max_gap, readings=tank_days[t.source_station_pk],
                 latest_good=latest_good[t.source_station_pk],
+                stale_after=stale_after[t.pk],
             )
             for t in tanks
         ],
