@@ -217,3 +217,22 @@ def _backfill_check(settings: Any) -> None:
             again.rollback()
     finally:
         engine.dispose()
+
+
+def test_joined_integers_parse_exactly_and_refuse_anything_else():
+    # minute_masks_between reads each station's quarters and masks as one joined text.
+    import warnings
+
+    import numpy as np
+
+    from app.status.rollups import _integers
+
+    parsed = _integers("1764633600,1764634500,-900,32767,0")
+    assert parsed.dtype == np.int64
+    assert parsed.tolist() == [1764633600, 1764634500, -900, 32767, 0]
+    # Refused (by numpy itself, or by the count check where numpy only warns and stops).
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        for bad in ("900,oops,1800", "900,1800,", "12.5"):
+            with pytest.raises(ValueError):
+                _integers(bad)
