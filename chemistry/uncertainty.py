@@ -256,7 +256,11 @@ def standard_uncertainty(
     flat_tank = None if at_temperature is None else flat(at_temperature)
     flat_base = {key: flat(value) for key, value in base_outputs.items()}
 
-    variance = {key: np.zeros(size) for key in base_outputs}
+    keys = list(base_outputs)
+    # One row per output: the loop below works on all outputs at once, row by row in the
+    # same order as before (so the same sums), instead of one small array per output.
+    variance = np.zeros((len(keys), size))
+    base_stack = np.stack([flat_base[key] for key in keys])
     # Chunks keep the stacked problem near a million waters whatever the input size.
     chunk = max(1, _STACKED_WATERS // rows)
     for start in range(0, size, chunk):
@@ -278,11 +282,12 @@ def standard_uncertainty(
         if flat_tank is not None:
             perturbed = _carry_to_temperature(perturbed, flat_tank[part])
         outputs = perturbed.as_dict()
+        stacked_outputs = np.stack([np.broadcast_to(outputs[key], (rows, part.stop - part.start))
+                                    for key in keys])
         for row, (_, _, step, u) in enumerate(flat_plan):
-            for key in variance:
-                derivative = (outputs[key][row] - flat_base[key][part]) / step[part]
-                variance[key][part] += (derivative * u[part]) ** 2
-    return {key: np.sqrt(value).reshape(shape) for key, value in variance.items()}
+            derivative = (stacked_outputs[:, row] - base_stack[:, part]) / step[part]
+            variance[:, part] += (derivative * u[part]) ** 2
+    return {key: np.sqrt(variance[number]).reshape(shape) for number, key in enumerate(keys)}
 
 
 def probability_below(value: Any, standard_uncertainty: Any, level: Any) -> np.ndarray:
