@@ -248,3 +248,23 @@ def test_local_hours_match_the_time_zone_database(zone, first_day):
     quarters = start + 900.0 * np.arange(4 * 24 * 10)
     expected = [datetime.fromtimestamp(q, tz=ZoneInfo(zone)).hour for q in quarters]
     assert _local_hours(quarters, ZoneInfo(zone)).tolist() == expected
+
+
+def test_interval_and_completeness_the_same_in_time_order_or_not():
+    # Times already in order skip the sort; shuffled, repeated or out-of-order times must
+    # give the same figures. Hand check: readings every 2 minutes over the first hour of a
+    # 2-hour window with 1-minute slots fill 30 of 120 slots (25 %); the median spacing is
+    # 2 minutes.
+    start, end = T0, T0 + timedelta(hours=2)
+    ordered = np.array([np.datetime64("2026-06-01T12:00") + np.timedelta64(2 * i, "m")
+                        for i in range(30)], dtype="datetime64[us]")
+    shuffled = np.random.default_rng(2).permutation(np.concatenate([ordered, ordered[:5]]))
+    for times in (ordered, shuffled):
+        assert infer_sampling_interval(times) == timedelta(minutes=2)
+        assert completeness_percent(times, start=start, end=end,
+                                    expected_interval=timedelta(minutes=1)) == 25.0
+    # Two readings in one slot count once, in order too.
+    doubled = np.sort(np.concatenate([ordered, ordered + np.timedelta64(10, "s")]))
+    assert completeness_percent(doubled, start=start, end=end,
+                                expected_interval=timedelta(minutes=1)) == 25.0
+    assert infer_sampling_interval(doubled[:1]) is None
