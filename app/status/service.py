@@ -760,8 +760,14 @@ def site_status(
     )
     latest_good: dict[int, Reading | None] = {}
     for pk in sorted({*fed, *(s.pk for s in _fill_sources(stations, tanks))}):
-        latest_good[pk] = latest_good_reading(
-            session=session, station_pk=pk, before=window.as_of
+        # Usually the station's latest reading is good: then it is the latest good one
+        # (no second look-up; of readings at the same time, the one latest_readings picks).
+        newest = latest.get(pk)
+        # No reading at all: no good one either.
+        latest_good[pk] = (
+            newest
+            if newest is None or _good([newest])
+            else latest_good_reading(session=session, station_pk=pk, before=window.as_of)
         )
     stale_after = stale_after_by_tank(session=session, tanks=tanks)
     return {
