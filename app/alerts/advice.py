@@ -28,10 +28,11 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import functools
 from typing import Any
 
 import numpy as np
-from sqlalchemy import func, or_, select
+from sqlalchemy import bindparam, func, or_, select
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -250,21 +251,31 @@ def no_data_window_minutes(
     return float(level) if level is not None else DEFAULT_SILENCE_MINUTES
 
 
+@functools.cache
+def _no_data_rules_query() -> Any:
+    """The query of :func:`stale_after_by_tank`, built once."""
+    return select(AlertRule.station_pk, AlertRule.tank_pk, AlertRule.level).where(
+        AlertRule.metric == "no_data",
+        AlertRule.enabled.is_(True),
+        AlertRule.deleted_at.is_(None),
+        or_(
+            AlertRule.station_pk.in_(bindparam("station_pks", expanding=True)),
+            AlertRule.tank_pk.in_(bindparam("tank_pks", expanding=True)),
+        ),
+    )
+
+
 def stale_after_by_tank(*, session: Session, tanks: list[Tank]) -> dict[int, float]:
     """:func:`stale_after_minutes` of several tanks from one query (the status shows every
     tank of a site): the enabled no-data rules on the tanks or their source stations."""
     if not tanks:
         return {}
     rules = session.execute(
-        select(AlertRule.station_pk, AlertRule.tank_pk, AlertRule.level).where(
-            AlertRule.metric == "no_data",
-            AlertRule.enabled.is_(True),
-            AlertRule.deleted_at.is_(None),
-            or_(
-                AlertRule.station_pk.in_({t.source_station_pk for t in tanks}),
-                AlertRule.tank_pk.in_({t.pk for t in tanks}),
-            ),
-        )
+        _no_data_rules_query(),
+        {
+            "station_pks": sorted({t.source_station_pk for t in tanks}),
+            "tank_pks": sorted({t.pk for t in tanks}),
+        },
     ).all()
     out = {}
     for tank in tanks:

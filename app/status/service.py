@@ -185,15 +185,26 @@ def latest_readings(
     in one query: a scalar sub-select per station picks the id from the time index."""
     if not station_pks:
         return {}
+    parameters: dict[str, Any] = {f"pk_{n}": pk for n, pk in enumerate(station_pks)}
+    parameters["before"] = before
+    statement = _latest_readings_query(len(station_pks))
+    return {r.station_pk: r for r in session.scalars(statement, parameters)}
+
+
+@functools.lru_cache(maxsize=16)
+def _latest_readings_query(stations: int) -> Any:
+    """The query of :func:`latest_readings` for this many stations, built once (parameters
+    ``pk_0`` ... and ``before``): building it is a good part of its cost."""
+    before = bindparam("before", type_=Reading.observed_at.type)
     ids = [
         select(Reading.id)
-        .where(Reading.station_pk == pk, Reading.observed_at < before)
+        .where(Reading.station_pk == bindparam(f"pk_{n}"), Reading.observed_at < before)
         .order_by(Reading.observed_at.desc(), Reading.id.desc())
         .limit(1)
         .scalar_subquery()
-        for pk in station_pks
+        for n in range(stations)
     ]
-    return {r.station_pk: r for r in session.scalars(select(Reading).where(Reading.id.in_(ids)))}
+    return select(Reading).where(Reading.id.in_(ids))
 
 
 def open_alerts(*, session: Session, site_id: str) -> list[tuple[Alert, AlertRule]]:
