@@ -32,5 +32,30 @@ UtcDatetime = Annotated[dt.datetime, AfterValidator(as_utc)]
 
 
 def json_body(content: Any) -> Any:
-    """``jsonable_encoder`` with every datetime written by :func:`utc_iso`."""
-    return jsonable_encoder(content, custom_encoder={dt.datetime: utc_iso})
+    """``jsonable_encoder`` with every datetime written by :func:`utc_iso`.
+
+    Plain dicts, lists, tuples, strings, numbers, ``None`` and datetimes (the status is
+    a few thousand of them) are walked here, several times faster; anything else goes to
+    ``jsonable_encoder`` itself, so the result is the same (keys starting with ``_sa``
+    left out, as it does).
+    """
+    return _encode(content)
+
+
+_PLAIN = frozenset((str, int, float, bool, type(None)))
+
+
+def _encode(value: Any) -> Any:
+    kind = type(value)
+    if kind in _PLAIN:
+        return value
+    if kind is dict:
+        if all(type(key) is str for key in value):
+            return {
+                key: _encode(item) for key, item in value.items() if not key.startswith("_sa")
+            }
+    elif kind is list or kind is tuple:
+        return [_encode(item) for item in value]
+    elif kind is dt.datetime:
+        return utc_iso(value)
+    return jsonable_encoder(value, custom_encoder={dt.datetime: utc_iso})

@@ -158,8 +158,12 @@ def standard_uncertainty(
         Temperature (deg C) to which the water is carried in a closed system
         before the outputs are taken (the tank prediction); default none.
     base : CarbonateState, optional
-        ``solve`` of exactly these inputs and options, when the caller has it
-        already: it is used as the unperturbed water instead of solving again.
+        The unperturbed water when the caller has already solved it: what
+        :func:`~chemistry.solver.solve` gives for these inputs and options,
+        carried with :func:`chemistry.transforms.at_temperature` to
+        ``at_temperature`` when that is given. It is used as it is (one
+        solve fewer, the same numbers); the inputs are then validated by
+        the caller's own solve, not again here.
 
     Returns
     -------
@@ -222,11 +226,11 @@ def standard_uncertainty(
         if value is not None
     }
     # Solving the unperturbed water first validates the inputs with their
-    # own names and indices, before any stacking (a caller's ``base`` did that).
+    # own names and indices, before any stacking.
     if base is None:
         base = solve(**{name: inputs[name] for name in given}, **options)
-    if at_temperature is not None:
-        base = _carry_to_temperature(base, at_temperature)
+        if at_temperature is not None:
+            base = _carry_to_temperature(base, at_temperature)
     base_outputs = base.as_dict()
     if not plan:
         return {key: np.zeros(np.shape(value)) for key, value in base_outputs.items()}
@@ -252,7 +256,11 @@ def standard_uncertainty(
     flat_tank = None if at_temperature is None else flat(at_temperature)
     flat_base = {key: flat(value) for key, value in base_outputs.items()}
 
-    variance = {key: np.zeros(size) for key in base_outputs}
+    keys = list(base_outputs)
+    # One row per output: the loop below works on all outputs at once, row by row in the
+    # same order as before (so the same sums), instead of one small array per output.
+    variance = np.zeros((len(keys), size))
+    base_stack = np.stack([flat_base[key] for key in keys])
     # Chunks keep the stacked problem near a million waters whatever the input size.
     chunk = max(1, _STACKED_WATERS // rows)
     for start in range(0, size, chunk):
@@ -274,11 +282,12 @@ def standard_uncertainty(
         if flat_tank is not None:
             perturbed = _carry_to_temperature(perturbed, flat_tank[part])
         outputs = perturbed.as_dict()
+        stacked_outputs = np.stack([np.broadcast_to(outputs[key], (rows, part.stop - part.start))
+                                    for key in keys])
         for row, (_, _, step, u) in enumerate(flat_plan):
-            for key in variance:
-                derivative = (outputs[key][row] - flat_base[key][part]) / step[part]
-                variance[key][part] += (derivative * u[part]) ** 2
-    return {key: np.sqrt(value).reshape(shape) for key, value in variance.items()}
+            derivative = (stacked_outputs[:, row] - base_stack[:, part]) / step[part]
+            variance[:, part] += (derivative * u[part]) ** 2
+    return {key: np.sqrt(variance[number]).reshape(shape) for number, key in enumerate(keys)}
 
 
 def probability_below(value: Any, standard_uncertainty: Any, level: Any) -> np.ndarray:

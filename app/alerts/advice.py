@@ -28,10 +28,11 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import functools
 from typing import Any
 
 import numpy as np
-from sqlalchemy import func, or_, select
+from sqlalchemy import bindparam, func, or_, select
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -134,6 +135,7 @@ def predict_tank_water(
     u_alkalinity: Any = 0.0,
     with_uncertainty: bool = True,
     dic: Any = None,
+    in_tank: Any = None,
 ) -> TankPrediction:
     """Omega aragonite of source water carried to the tank's culture temperature.
 
@@ -147,7 +149,10 @@ def predict_tank_water(
     values only (a day's series for minutes below the floor): the budget costs several
     solves more. ``dic`` (umol/kg, the stored DIC derived from the same pH and alkalinity)
     lets the water be solved at the culture temperature from alkalinity and DIC at once,
-    one solve instead of two: the same closed-system water.
+    one solve instead of two: the same closed-system water. ``in_tank``: the water the
+    caller has already solved from these inputs and carried to the culture temperature
+    (:func:`chemistry.at_temperature`), used as it is, also as the uncertainty budget's
+    unperturbed water (the scalar advice solves it for its own figures; the same numbers).
     """
     culture = float(tank.culture_temperature_c)
     inputs = dict(
@@ -158,9 +163,12 @@ def predict_tank_water(
         ph_scale="total",
         carbonic=site.carbonic_constants,
     )
-    if dic is None:
-        in_tank = chemistry.at_temperature(chemistry.solve(**inputs), culture)
+    if in_tank is not None:
+        base = in_tank
+    elif dic is None:
+        in_tank = base = chemistry.at_temperature(chemistry.solve(**inputs), culture)
     else:
+        base = None  # the budget's own base comes from pH and alkalinity
         in_tank = chemistry.solve(
             temperature=culture,
             salinity=inputs["salinity"],
@@ -175,6 +183,7 @@ def predict_tank_water(
             u_ph=float(station.ph_uncertainty),
             u_alkalinity=np.asarray(u_alkalinity, dtype=float),
             at_temperature=culture,
+            base=base,
         )["omega_aragonite"]
     else:
         uncertainty = np.full(omega.shape, np.nan)
@@ -240,6 +249,44 @@ def no_data_window_minutes(
         )
     )
     return float(level) if level is not None else DEFAULT_SILENCE_MINUTES
+
+
+@functools.cache
+def _no_data_rules_query() -> Any:
+    """The query of :func:`stale_after_by_tank`, built once."""
+    return select(AlertRule.station_pk, AlertRule.tank_pk, AlertRule.level).where(
+        AlertRule.metric == "no_data",
+        AlertRule.enabled.is_(True),
+        AlertRule.deleted_at.is_(None),
+        or_(
+            AlertRule.station_pk.in_(bindparam("station_pks", expanding=True)),
+            AlertRule.tank_pk.in_(bindparam("tank_pks", expanding=True)),
+        ),
+    )
+
+
+def stale_after_by_tank(*, session: Session, tanks: list[Tank]) -> dict[int, float]:
+    """:func:`stale_after_minutes` of several tanks from one query (the status shows every
+    tank of a site): the enabled no-data rules on the tanks or their source stations."""
+    if not tanks:
+        return {}
+    rules = session.execute(
+        _no_data_rules_query(),
+        {
+            "station_pks": sorted({t.source_station_pk for t in tanks}),
+            "tank_pks": sorted({t.pk for t in tanks}),
+        },
+    ).all()
+    out = {}
+    for tank in tanks:
+        levels = [
+            float(level)
+            for station_pk, tank_pk, level in rules
+            if level is not None
+            and (station_pk == tank.source_station_pk or tank_pk == tank.pk)
+        ]
+        out[tank.pk] = min(levels) if levels else DEFAULT_SILENCE_MINUTES
+    return out
 
 
 def _water(state: Any, uncertainty: float | None, floor: float) -> dict[str, Any]:
@@ -309,16 +356,18 @@ def dose_sentence(dose: dict[str, Any], volume_l: float) -> str:
 
 def _dose(
     *,
-    in_situ: Any,
+    untreated_state: Any,
     treated_state: Any | None,
     treatment: dict[str, Any] | None,
     treatment_problem: str | None,
     chemical: str,
     target: float,
-    culture: float,
     volume_l: float,
     floor: float,
 ) -> dict[str, Any]:
+    """The dose advice. ``untreated_state``: the untreated water already carried to the
+    culture temperature (what :func:`chemistry.dose_for_target` would carry it to when
+    given the in-situ water and that temperature: the same water, not solved again)."""
     dose: dict[str, Any] = {
         "chemical": chemical,
         "target_omega_aragonite": target,
@@ -334,7 +383,7 @@ def _dose(
         "additional_grams_for_tank": None,
     }
     try:
-        total = chemistry.dose_for_target(in_situ, target, chemical=chemical, temperature=culture)
+        total = chemistry.dose_for_target(untreated_state, target, chemical=chemical)
     except chemistry.DoseRefusedError as refusal:
         dose["total_refused"] = str(refusal)
     else:
@@ -381,6 +430,7 @@ def tank_advice(
     chemical: str = DEFAULT_CHEMICAL,
     reading: Reading | None = None,
     now: dt.datetime | None = None,
+    stale_after: float | None = None,
 ) -> dict[str, Any] | None:
     """Advice for one tank from the latest good reading at its source station.
 
@@ -389,6 +439,8 @@ def tank_advice(
     tank (``in_tank``: what the larvae get, after the current treatment unless that is
     outside safe limits; ``untreated``; ``after_treatment``), the dose for the target
     (total and additional, see :func:`dose_sentence`), aeration, warnings, and the caution.
+    ``stale_after``: the tank's :func:`stale_after_minutes` when the caller has already
+    looked it up (the status does, for all its tanks in one query).
     """
     station = tank.source_station
     if reading is None:
@@ -400,16 +452,6 @@ def tank_advice(
     culture = float(tank.culture_temperature_c)
     volume = float(tank.volume_l)
     u_alk = alkalinity_uncertainty(station, reading)
-    prediction = predict_tank_water(
-        site=site,
-        tank=tank,
-        station=station,
-        temperature=reading.temperature_c,
-        salinity=reading.salinity,
-        ph_total=reading.ph_total,
-        alkalinity=reading.alkalinity_used_umol_kg,
-        u_alkalinity=u_alk,
-    )
     in_situ = chemistry.solve(
         temperature=reading.temperature_c,
         salinity=reading.salinity,
@@ -419,6 +461,17 @@ def tank_advice(
         carbonic=site.carbonic_constants,
     )
     untreated_state = chemistry.at_temperature(in_situ, culture)
+    prediction = predict_tank_water(
+        site=site,
+        tank=tank,
+        station=station,
+        temperature=reading.temperature_c,
+        salinity=reading.salinity,
+        ph_total=reading.ph_total,
+        alkalinity=reading.alkalinity_used_umol_kg,
+        u_alkalinity=u_alk,
+        in_tank=untreated_state,  # solved just above: not again
+    )
     untreated = _water(
         untreated_state, float(prediction.omega_aragonite_uncertainty), floor
     )
@@ -450,7 +503,8 @@ def tank_advice(
     if observed.tzinfo is None:
         observed = observed.replace(tzinfo=dt.UTC)
     age_minutes = (now - observed).total_seconds() / 60.0
-    stale_after = stale_after_minutes(session=session, tank=tank)
+    if stale_after is None:
+        stale_after = stale_after_minutes(session=session, tank=tank)
     stale = age_minutes > stale_after
     if stale:
         warnings.append(
@@ -460,13 +514,12 @@ def tank_advice(
         )
 
     dose = _dose(
-        in_situ=in_situ,
+        untreated_state=untreated_state,
         treated_state=treated_state,
         treatment=treatment,
         treatment_problem=treatment_problem,
         chemical=chemical,
         target=target,
-        culture=culture,
         volume_l=volume,
         floor=floor,
     )

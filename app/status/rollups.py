@@ -600,11 +600,7 @@ def minute_masks_between(
             {"station_pks": list(station_pks), "first": first, "last": last},
         )
         for pk, off_minute, quarters, masks in rows:
-            out[pk] = (
-                [np.array(quarters.split(","), dtype=np.int64)],
-                [np.array(masks.split(","), dtype=np.int64)],
-                int(off_minute),
-            )
+            out[pk] = ([_integers(quarters)], [_integers(masks)], int(off_minute))
     for lo, hi in pieces:  # cut quarters, from their readings
         part = quarters_between(
             session=session,
@@ -627,10 +623,23 @@ def minute_masks_between(
     return result
 
 
+def _integers(joined: str) -> np.ndarray:
+    """The integers of a comma-joined list from the database, parsed by numpy in C (about
+    five times faster than splitting into Python strings first: a week of six stations
+    is 8,000 numbers per status)."""
+    values = np.fromstring(joined, dtype=np.int64, sep=",")
+    if values.size != joined.count(",") + 1:  # numpy stops at the first non-number
+        raise ValueError(f"not a comma-separated list of integers: {joined[:80]!r}")
+    return values
+
+
 def occupied_minutes(quarter_start: np.ndarray, minute_mask: np.ndarray) -> np.ndarray:
     """The minutes (as UTC ``datetime64[us]``) with a reading, in time order."""
     bits = (minute_mask[:, None] >> np.arange(MINUTES_PER_QUARTER)) & 1
     rows, minute = np.nonzero(bits)
     seconds = quarter_start[rows] + 60 * minute
-    return np.sort(seconds).astype("datetime64[s]").astype("datetime64[us]")
+    # Row by row and minute by minute: already in time order when the quarters are.
+    if quarter_start.size > 1 and not np.all(quarter_start[1:] > quarter_start[:-1]):
+        seconds = np.sort(seconds)
+    return seconds.astype("datetime64[s]").astype("datetime64[us]")
 

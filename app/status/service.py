@@ -30,6 +30,7 @@ from app.alerts.advice import (
     latest_good_reading,
     predict_tank_water,
     source_description,
+    stale_after_by_tank,
     tank_advice,
 )
 from app.alerts.models import Alert, AlertRule
@@ -184,15 +185,26 @@ def latest_readings(
     in one query: a scalar sub-select per station picks the id from the time index."""
     if not station_pks:
         return {}
+    parameters: dict[str, Any] = {f"pk_{n}": pk for n, pk in enumerate(station_pks)}
+    parameters["before"] = before
+    statement = _latest_readings_query(len(station_pks))
+    return {r.station_pk: r for r in session.scalars(statement, parameters)}
+
+
+@functools.lru_cache(maxsize=16)
+def _latest_readings_query(stations: int) -> Any:
+    """The query of :func:`latest_readings` for this many stations, built once (parameters
+    ``pk_0`` ... and ``before``): building it is a good part of its cost."""
+    before = bindparam("before", type_=Reading.observed_at.type)
     ids = [
         select(Reading.id)
-        .where(Reading.station_pk == pk, Reading.observed_at < before)
+        .where(Reading.station_pk == bindparam(f"pk_{n}"), Reading.observed_at < before)
         .order_by(Reading.observed_at.desc(), Reading.id.desc())
         .limit(1)
         .scalar_subquery()
-        for pk in station_pks
+        for n in range(stations)
     ]
-    return {r.station_pk: r for r in session.scalars(select(Reading).where(Reading.id.in_(ids)))}
+    return select(Reading).where(Reading.id.in_(ids))
 
 
 def open_alerts(*, session: Session, site_id: str) -> list[tuple[Alert, AlertRule]]:
@@ -449,10 +461,12 @@ def tank_status(
     max_gap: timedelta,
     readings: dict[str, np.ndarray] | None = None,
     latest_good: Reading | bool | None = False,
+    stale_after: float | None = None,
 ) -> dict[str, Any]:
     """A tank's day. ``readings``: its source station's columns from ``window.start -
     max_gap`` to ``window.as_of + max_gap`` (read here when not given); ``latest_good``:
-    the station's latest good reading before ``window.as_of`` (looked up when ``False``)."""
+    the station's latest good reading before ``window.as_of`` (looked up when ``False``);
+    ``stale_after``: the tank's no-data window in minutes (looked up when ``None``)."""
     station = tank.source_station
     if readings is None:
         # One reading either side of the day so that pieces crossing midnight are counted.
@@ -478,7 +492,12 @@ def tank_status(
     advice = None
     if reading is not None:
         advice = tank_advice(
-            session=session, site=site, tank=tank, reading=reading, now=window.as_of
+            session=session,
+            site=site,
+            tank=tank,
+            reading=reading,
+            now=window.as_of,
+            stale_after=stale_after,
         )
     predicted = None
     after_treatment = None
@@ -752,9 +771,16 @@ def site_status(
     )
     latest_good: dict[int, Reading | None] = {}
     for pk in sorted({*fed, *(s.pk for s in _fill_sources(stations, tanks))}):
-        latest_good[pk] = latest_good_reading(
-            session=session, station_pk=pk, before=window.as_of
+        # Usually the station's latest reading is good: then it is the latest good one
+        # (no second look-up; of readings at the same time, the one latest_readings picks).
+        newest = latest.get(pk)
+        # No reading at all: no good one either.
+        latest_good[pk] = (
+            newest
+            if newest is None or _good([newest])
+            else latest_good_reading(session=session, station_pk=pk, before=window.as_of)
         )
+    stale_after = stale_after_by_tank(session=session, tanks=tanks)
     return {
         "site_id": site.id,
         "site_name": site.name,
@@ -781,6 +807,7 @@ def site_status(
                 session=session, site=site, tank=t, window=window, alerts=alerts,
                 max_gap=max_gap, readings=tank_days[t.source_station_pk],
                 latest_good=latest_good[t.source_station_pk],
+                stale_after=stale_after[t.pk],
             )
             for t in tanks
         ],

@@ -217,3 +217,35 @@ def _backfill_check(settings: Any) -> None:
             again.rollback()
     finally:
         engine.dispose()
+
+
+def test_joined_integers_parse_exactly_and_refuse_anything_else():
+    # minute_masks_between reads each station's quarters and masks as one joined text.
+    import warnings
+
+    import numpy as np
+
+    from app.status.rollups import _integers
+
+    parsed = _integers("1764633600,1764634500,-900,32767,0")
+    assert parsed.dtype == np.int64
+    assert parsed.tolist() == [1764633600, 1764634500, -900, 32767, 0]
+    # Refused (by numpy itself, or by the count check where numpy only warns and stops).
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        for bad in ("900,oops,1800", "900,1800,", "12.5"):
+            with pytest.raises(ValueError):
+                _integers(bad)
+
+
+def test_occupied_minutes_are_in_time_order_whatever_the_quarter_order():
+    import numpy as np
+
+    from app.status.rollups import occupied_minutes
+
+    # Minutes 0 and 14 of the 00:00 quarter, minute 1 of the 00:15 quarter (bits 0, 14, 1).
+    quarters = np.array([0, 900], dtype=np.int64)
+    masks = np.array([1 | 1 << 14, 1 << 1], dtype=np.int64)
+    expected = np.array([0, 14 * 60, 900 + 60], dtype="datetime64[s]").astype("datetime64[us]")
+    np.testing.assert_array_equal(occupied_minutes(quarters, masks), expected)
+    np.testing.assert_array_equal(occupied_minutes(quarters[::-1], masks[::-1]), expected)

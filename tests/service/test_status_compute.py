@@ -162,6 +162,28 @@ def test_fill_window_hint_uses_local_hours_and_medians():
                             min_count=2).best_hours == [14, 5]
 
 
+def test_fill_window_medians_are_numpy_medians_hour_by_hour():
+    # The hint sorts once by hour and value; each hour's median must be exactly what
+    # np.median of that hour's values gives (odd and even counts, ties, empty hours), and
+    # each hour's count the sum of the counts behind its values.
+    rng = np.random.default_rng(6)
+    seconds = np.sort(rng.integers(0, 7 * 86400, 900)).astype(float)
+    seconds = seconds[(seconds // 3600) % 24 != 3]  # 03 UTC left empty
+    values = np.round(rng.normal(1.8, 0.4, seconds.size), 2)  # rounded: ties happen
+    counts = rng.integers(1, 16, seconds.size)
+    times = (seconds * 1e6).astype("datetime64[us]")
+    hint = fill_window_hint(times, values, timezone="UTC", counts=counts, best=24)
+    hours = (seconds // 3600).astype(int) % 24
+    for hour in range(24):
+        in_hour = hours == hour
+        if hour == 3:
+            assert hint.hourly_median[hour] is None and hint.hourly_count[hour] == 0
+            continue
+        assert hint.hourly_median[hour] == float(np.median(values[in_hour]))
+        assert hint.hourly_count[hour] == int(counts[in_hour].sum())
+    assert 3 not in hint.best_hours and len(hint.best_hours) == 23
+
+
 def test_batch_exposure_hand_worked():
     # Hourly predictions 2.0, 1.0, 0.5, 1.0, 2.0; floor 1.5; early window shortened to 2 h.
     #  0-1 h: 2.0->1.0: below 1.5 for 0.5 h; deficit triangle 0.5*0.5*0.5 = 0.125; below 1: 0.
@@ -226,3 +248,23 @@ def test_local_hours_match_the_time_zone_database(zone, first_day):
     quarters = start + 900.0 * np.arange(4 * 24 * 10)
     expected = [datetime.fromtimestamp(q, tz=ZoneInfo(zone)).hour for q in quarters]
     assert _local_hours(quarters, ZoneInfo(zone)).tolist() == expected
+
+
+def test_interval_and_completeness_the_same_in_time_order_or_not():
+    # Times already in order skip the sort; shuffled, repeated or out-of-order times must
+    # give the same figures. Hand check: readings every 2 minutes over the first hour of a
+    # 2-hour window with 1-minute slots fill 30 of 120 slots (25 %); the median spacing is
+    # 2 minutes.
+    start, end = T0, T0 + timedelta(hours=2)
+    ordered = np.array([np.datetime64("2026-06-01T12:00") + np.timedelta64(2 * i, "m")
+                        for i in range(30)], dtype="datetime64[us]")
+    shuffled = np.random.default_rng(2).permutation(np.concatenate([ordered, ordered[:5]]))
+    for times in (ordered, shuffled):
+        assert infer_sampling_interval(times) == timedelta(minutes=2)
+        assert completeness_percent(times, start=start, end=end,
+                                    expected_interval=timedelta(minutes=1)) == 25.0
+    # Two readings in one slot count once, in order too.
+    doubled = np.sort(np.concatenate([ordered, ordered + np.timedelta64(10, "s")]))
+    assert completeness_percent(doubled, start=start, end=end,
+                                expected_interval=timedelta(minutes=1)) == 25.0
+    assert infer_sampling_interval(doubled[:1]) is None

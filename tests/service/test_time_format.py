@@ -89,3 +89,41 @@ def test_readings_and_status_write_z(client, admin_headers, scene):
     assert_all_utc_z(status.json())
     for url in ("/api/v1/sites/cove", "/api/v1/sites/cove/tanks"):
         assert_all_utc_z(client.get(url, headers=admin_headers).json())
+
+
+def test_json_body_walks_plain_data_as_jsonable_encoder_does():
+    # json_body walks plain containers itself and hands anything else to FastAPI's
+    # jsonable_encoder: the two must give the same data for every kind of value.
+    import enum
+    from pathlib import PurePosixPath
+
+    import numpy as np
+    from fastapi.encoders import jsonable_encoder
+
+    from app.timefmt import json_body, utc_iso
+
+    class Colour(enum.Enum):
+        RED = "red"
+
+    class Label(enum.StrEnum):
+        A = "a"
+
+    pacific = dt.timezone(dt.timedelta(hours=-7))
+    content = {
+        "when": dt.datetime(2026, 6, 1, 5, 0, tzinfo=pacific),
+        "naive": dt.datetime(2026, 6, 1, 12, 0, 0, 123000),
+        "day": dt.date(2026, 6, 1),
+        "numbers": (1, 2.5, True, None, np.float64(1.25), float("inf")),
+        "nested": [{"a": [dt.datetime(2026, 1, 1, tzinfo=dt.UTC)]}, ("x", "y")],
+        "_sa_instance_state": "left out",
+        "enum": Colour.RED,
+        "str_enum": Label.A,
+        "path": PurePosixPath("/tmp/x"),
+        "set": {3},
+        "int_keys": {1: "one"},
+    }
+    expected = jsonable_encoder(content, custom_encoder={dt.datetime: utc_iso})
+    assert json_body(content) == expected
+    assert expected["when"] == "2026-06-01T12:00:00Z"
+    assert "_sa_instance_state" not in json_body(content)
+    assert json_body(content)["str_enum"] == "a" and type(json_body(content)["str_enum"]) is str
