@@ -40,7 +40,7 @@ from bench._support import (
 
 STATIONS = 6
 DAYS = 31 if QUICK else 365
-RUNS = 7
+RUNS = 15
 GOAL_RATIO = 3.0
 SITE_ID = "bench-status"
 DAY_VARIABLES = ("omega_aragonite", "ph_total", "pco2_uatm", "temperature_c", "salinity")
@@ -236,8 +236,6 @@ def main() -> bool:
     rows = _bare_aggregate(path, start, end)
     if len(rows) != STATIONS or any(row[1] != 1440 for row in rows):
         raise RuntimeError(f"fixture day incomplete: {[row[:2] for row in rows]}")
-    bare = _median_seconds(lambda: _bare_aggregate(path, start, end))
-
     headers = {"Authorization": f"Bearer {viewer_key}"}
     with serving(f"sqlite:///{path}") as base, httpx.Client(base_url=base, timeout=120) as client:
 
@@ -249,7 +247,21 @@ def main() -> bool:
             )
             answer.raise_for_status()
 
-        status_seconds = _median_seconds(get_status)
+        # The bare aggregate and the status in turn, so that both meet the machine as it is
+        # at that moment (on a shared machine either moves by half from one minute to the
+        # next); the figure is the median of the runs' ratios.
+        _bare_aggregate(path, start, end)
+        get_status()  # warm: caches, imports, the first connection
+        pairs = []
+        for _ in range(RUNS):
+            began = time.perf_counter()
+            _bare_aggregate(path, start, end)
+            middle = time.perf_counter()
+            get_status()
+            pairs.append((middle - began, time.perf_counter() - middle))
+        bare = statistics.median(b for b, _ in pairs)
+        status_seconds = statistics.median(s for _, s in pairs)
+        ratio = statistics.median(s / b for b, s in pairs)
         body = client.get(
             f"/api/v1/sites/{SITE_ID}/status", params={"date": day.isoformat()}, headers=headers
         ).json()
@@ -266,13 +278,15 @@ def main() -> bool:
 
         chart_seconds = _median_seconds(get_chart, runs=3)
 
-    ratio = status_seconds / bare
     met = ratio <= GOAL_RATIO
     print(load_average())
     print(f"fixture: {STATIONS} stations x {DAYS} days of 1-minute readings, 2 tanks")
-    print(f"bare SQL min/mean/max per station for one day: {bare * 1000:.1f} ms")
-    print(f"status of that day over HTTP: {status_seconds * 1000:.1f} ms")
-    print(f"ratio {ratio:.2f} (goal <= {GOAL_RATIO:g}): {'met' if met else 'MISSED'}")
+    print(f"bare SQL min/mean/max per station for one day: median {bare * 1000:.1f} ms")
+    print(f"status of that day over HTTP: median {status_seconds * 1000:.1f} ms")
+    print(
+        f"ratio, median of {RUNS} alternating runs' {ratio:.2f} (goal <= {GOAL_RATIO:g}): "
+        f"{'met' if met else 'MISSED'}"
+    )
     print(f"7-day chart (chart.svg, intake station, 2 tank temperatures): {chart_seconds:.2f} s")
     return met
 
