@@ -60,7 +60,7 @@ __attribute__((simd("notinbranch"))) double log(double);
 
 /* Pairs of given quantities (chemistry.kernel.PAIRS). */
 enum { PH_ALK, PH_DIC, PH_PCO2, ALK_DIC, ALK_PCO2, DIC_PCO2 };
-/* pH scales (chemistry.kernel._SCALES). */
+/* pH scales (chemistry.scales.PH_SCALES). */
 enum { SCALE_TOTAL, SCALE_SEAWATER, SCALE_FREE, SCALE_NBS };
 /* Input columns (chemistry.kernel.solve_flat) and constant shifts (solver.CONSTANT_SHIFT_KEYS). */
 enum { IN_T, IN_S, IN_PO4, IN_SI, IN_A, IN_B, N_INPUTS };

@@ -1,7 +1,7 @@
 """The compiled array path of :func:`chemistry.solve`, when the install built it.
 
 ``chemistry/_kernel.c`` holds the same relations and Newton iteration as the numpy code,
-fused into one pass per block of 256 readings; on large arrays it is several times faster,
+fused into one pass per block of 128 readings; on large arrays it is several times faster,
 because numpy spends its time writing and reading one temporary array per operation. It is
 optional: an install without a C compiler leaves it out and :func:`chemistry.solve` uses
 numpy throughout. The numpy code stays the reference; ``tests/chemistry/test_kernel.py``
@@ -22,6 +22,7 @@ from contextlib import contextmanager
 import numpy as np
 
 from .pairs import INPUT_PAIRS
+from .scales import PH_SCALES
 
 try:
     from . import _kernel
@@ -30,9 +31,9 @@ except ImportError:  # built without a C compiler
 
 __all__ = ["PAIRS", "available", "enabled", "solve_flat", "threads_for", "use_kernel"]
 
-# The pair codes of _kernel.c are positions in INPUT_PAIRS; the pH scales as below.
+# The pair and pH-scale codes of _kernel.c are positions in these tuples.
 PAIRS = INPUT_PAIRS
-_SCALES = ("total", "seawater", "free", "nbs")
+_SCALES = PH_SCALES
 _CARBONIC = ("lueker2000", "millero2010")
 OUTPUT_COUNT = 14
 

@@ -227,9 +227,7 @@ def stale_after_minutes(*, session: Session, tank: Tank) -> float:
     warns, and a tank alert left pending on such a reading lapses at the sweep
     (:func:`app.alerts.evaluation.sweep`).
     """
-    return no_data_window_minutes(
-        session=session, station_pk=tank.source_station_pk, tank_pk=tank.pk
-    )
+    return stale_after_by_tank(session=session, tanks=[tank])[tank.pk]
 
 
 def no_data_window_minutes(
