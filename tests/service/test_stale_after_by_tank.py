@@ -6,7 +6,11 @@ import datetime as dt
 
 import pytest
 
-from app.alerts.advice import stale_after_by_tank, stale_after_minutes
+from app.alerts.advice import (
+    no_data_window_minutes,
+    stale_after_by_tank,
+    stale_after_minutes,
+)
 from app.alerts.models import AlertRule
 from app.alerts.rules import DEFAULT_SILENCE_MINUTES
 
@@ -52,7 +56,12 @@ def test_one_query_gives_each_tank_the_same_window_as_the_per_tank_look_up(
 
     windows = stale_after_by_tank(session=session, tanks=tanks)
 
-    assert windows == {t.pk: stale_after_minutes(session=session, tank=t) for t in tanks}
+    # The per-station look-up the alert sweep uses, asked for each tank, agrees.
+    assert windows == {
+        t.pk: no_data_window_minutes(session=session, station_pk=t.source_station_pk, tank_pk=t.pk)
+        for t in tanks
+    }
+    assert stale_after_minutes(session=session, tank=own_rule) == 10.0
     # The station's rule, the tank's own shorter rule, and the default (design default).
     assert windows == {on_first.pk: 20.0, own_rule.pk: 10.0, on_second.pk: DEFAULT_SILENCE_MINUTES}
     assert stale_after_by_tank(session=session, tanks=[]) == {}
