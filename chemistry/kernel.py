@@ -90,8 +90,10 @@ def _processors() -> int:
 
 def threads_for(size: int) -> int:
     """Threads for a solve of ``size`` readings: one per processor this process may use, at
-    most one per READINGS_PER_THREAD readings, at most ``SPATLINE_CHEMISTRY_THREADS``."""
-    limit = int(os.environ.get("SPATLINE_CHEMISTRY_THREADS", "0") or 0) or _processors()
+    most one per READINGS_PER_THREAD readings, at most ``SPATLINE_CHEMISTRY_THREADS`` (a
+    positive whole number; anything else is ignored)."""
+    setting = os.environ.get("SPATLINE_CHEMISTRY_THREADS", "").strip()
+    limit = int(setting) if setting.isdigit() and int(setting) > 0 else _processors()
     return max(1, min(limit, size // READINGS_PER_THREAD))
 
 

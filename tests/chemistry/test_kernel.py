@@ -43,6 +43,21 @@ def test_kernel_is_built_in_ci():
     assert kernel.enabled()
 
 
+@pytest.mark.parametrize(
+    "setting, size, expected",
+    [("", 10_000, 1), ("1", 10_000_000, 1), ("3", 10_000_000, 3), ("many", 65_536 * 2, None),
+     ("0", 65_536 * 2, None)],
+)
+def test_threads_follow_the_size_and_the_setting(monkeypatch, setting, size, expected):
+    # A small solve (a sensor batch) stays on the calling thread; a bad setting is ignored.
+    monkeypatch.setenv("SPATLINE_CHEMISTRY_THREADS", setting)
+    threads = kernel.threads_for(size)
+    if expected is None:
+        assert threads == min(kernel._processors(), 2)
+    else:
+        assert threads == expected
+
+
 def _waters(seed, n=3000):
     """Waters from the (pH, alkalinity) pair, so that every other pair is consistent."""
     rng = np.random.default_rng(seed)
