@@ -443,6 +443,14 @@ def quarters_between(
         order = np.lexsort((arrays["quarter_start"], station))
         station = station[order]
         arrays = {name: values[order] for name, values in arrays.items()}
+    return by_station(station, arrays, station_pks)
+
+
+def by_station(
+    station: np.ndarray, arrays: Mapping[str, np.ndarray], station_pks: Sequence[int]
+) -> dict[int, dict[str, np.ndarray]]:
+    """Columns of rows sorted by station split into one set of columns per station (a
+    station without rows gets empty ones)."""
     out = {}
     for pk in station_pks:
         lo, hi = np.searchsorted(station, pk, "left"), np.searchsorted(station, pk, "right")

@@ -170,12 +170,7 @@ def stations_columns(
             arrays[name] = np.array(values, dtype=object)
         else:
             arrays[name] = np.array(values, dtype=float)  # None becomes NaN
-    station = np.array(columns[0], dtype=np.int64)
-    out = {}
-    for pk in station_pks:
-        lo, hi = np.searchsorted(station, pk, "left"), np.searchsorted(station, pk, "right")
-        out[pk] = {name: values[lo:hi] for name, values in arrays.items()}
-    return out
+    return rollups.by_station(np.array(columns[0], dtype=np.int64), arrays, station_pks)
 
 
 def latest_readings(
