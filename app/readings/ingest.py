@@ -29,11 +29,13 @@ import numpy as np
 from sqlalchemy import (
     Connection,
     Float,
+    Integer,
     Select,
     String,
     bindparam,
     cast,
     func,
+    literal_column,
     or_,
     select,
     text,
@@ -502,8 +504,7 @@ def _context_query(sqlite: bool) -> Select[Any]:
             Reading.salinity,
             Reading.ph,
             Reading.alkalinity_input_umol_kg,
-            Reading.alkalinity_source,
-            Reading.omega_aragonite,
+            *_CONTEXT_MARKS,
             *(getattr(Reading, name) for name in QC_COLUMNS),
         )
         .where(
@@ -521,8 +522,23 @@ _VALUE_NAMES = (
     "salinity",
     "ph",
     "alkalinity_input_umol_kg",
-    "alkalinity_source",
-    "omega_aragonite",
+    "from_station",
+    "available",
+)
+
+#: What QC needs of a stored reading's alkalinity source and chemistry, as 0 or 1 from the
+#: database (small integers cost Python nothing; a string or float per row does).
+_CONTEXT_MARKS = (
+    # Written into the SQL: the statements are compiled once and run on the driver's cursor.
+    cast(
+        Reading.alkalinity_source.in_(
+            [literal_column("'fixed'"), literal_column("'salinity_line'")]
+        ),
+        Integer,
+    ).label(
+        "from_station"
+    ),
+    cast(Reading.omega_aragonite.is_not(None), Integer).label("available"),
 )
 
 
@@ -541,7 +557,9 @@ def _sqlite_context_queries() -> tuple[Select[Any], Select[Any]]:
     )
     observed = type_coerce(Reading.observed_at, String)
     order = (Reading.observed_at, Reading.id)
-    values = select(observed, *(getattr(Reading, name) for name in _VALUE_NAMES[1:]))
+    values = select(
+        observed, *(getattr(Reading, name) for name in _VALUE_NAMES[1:5]), *_CONTEXT_MARKS
+    )
     flags = select(observed, Reading.id, *(getattr(Reading, name) for name in QC_COLUMNS))
     return values.where(*span).order_by(*order), flags.where(*span).order_by(*order)
 
@@ -621,13 +639,9 @@ def _context_arrays(
 ) -> dict[str, np.ndarray]:
     out: dict[str, np.ndarray] = {
         "seconds": seconds,
-        "from_station": np.array(
-            [source in ("fixed", "salinity_line") for source in columns["alkalinity_source"]],
-            dtype=bool,
-        ),
-        "available": np.array(
-            [value is not None for value in columns["omega_aragonite"]], dtype=bool
-        ),
+        # NULL (no alkalinity source) counts as not from the station.
+        "from_station": np.array(columns["from_station"], dtype=float) == 1,
+        "available": np.array(columns["available"], dtype=bool),
     }
     for name in ("temperature_c", "salinity", "ph", "alkalinity_input_umol_kg"):
         out[name] = np.array(columns[name], dtype=float)  # None becomes NaN
@@ -821,9 +835,12 @@ def _column_chunks(columns: Mapping[str, list[Any]], size: int) -> list[dict[str
     ]
 
 
-def _insert_new(session: Session, columns: Mapping[str, list[Any]]) -> dict[dt.datetime, int]:
+def _insert_new(
+    session: Session, columns: Mapping[str, list[Any]], micros: np.ndarray
+) -> dict[dt.datetime, int]:
     """Insert the rows given as columns (name to one value per row, all the same length),
-    skipping any that a concurrent request stored first.
+    skipping any that a concurrent request stored first. ``micros``: each row's
+    observed_at in microseconds since 1970 (:func:`_epoch_micros`).
 
     Returns the id of every row this call stored, by observed_at (unique per station
     and source).
@@ -839,16 +856,25 @@ def _insert_new(session: Session, columns: Mapping[str, list[Any]]) -> dict[dt.d
     if dialect != "sqlite":  # pragma: no cover - the service supports these two databases
         raise RuntimeError(f"unsupported database dialect {dialect!r}")
 
-    for chunk in _column_chunks(columns, INSERT_CHUNK):
-        stored.update(_insert_sqlite(connection, chunk))
+    for number, chunk in enumerate(_column_chunks(columns, INSERT_CHUNK)):
+        first = number * INSERT_CHUNK
+        stored.update(_insert_sqlite(connection, chunk, micros[first : first + INSERT_CHUNK]))
     return stored
 
 
 _MICROSECOND = dt.timedelta(microseconds=1)
 
 
-def _sqlite_time_texts(values: list[dt.datetime], process: Callable[[Any], Any]) -> list[Any]:
-    """The stored text of each aware time, formatted by numpy a column at a time.
+def _epoch_micros(values: Sequence[dt.datetime]) -> np.ndarray:
+    """Aware times as whole microseconds since 1970 (exact, unlike ``timestamp()``)."""
+    return np.array([(value - _EPOCH) // _MICROSECOND for value in values], dtype=np.int64)
+
+
+def _sqlite_time_texts(
+    values: list[dt.datetime], process: Callable[[Any], Any], micros: np.ndarray
+) -> list[Any]:
+    """The stored text of each aware time (``micros``: :func:`_epoch_micros` of them),
+    formatted by numpy a column at a time.
 
     The unique index compares this text, so it must be exactly what the column type
     writes (naive UTC, ``YYYY-MM-DD HH:MM:SS.ffffff``); the first and last values are
@@ -857,7 +883,6 @@ def _sqlite_time_texts(values: list[dt.datetime], process: Callable[[Any], Any])
     """
     if not values:
         return []
-    micros = np.array([(value - _EPOCH) // _MICROSECOND for value in values], dtype=np.int64)
     texts = np.datetime_as_string(micros.astype("datetime64[us]"), unit="us").astype("S26")
     texts.view("S1").reshape(-1, 26)[:, 10] = b" "  # ISO's "T" as the column writes it
     written = texts.astype("U26").tolist()
@@ -867,7 +892,7 @@ def _sqlite_time_texts(values: list[dt.datetime], process: Callable[[Any], Any])
 
 
 def _insert_sqlite(
-    connection: Connection, columns: Mapping[str, list[Any]]
+    connection: Connection, columns: Mapping[str, list[Any]], micros: np.ndarray
 ) -> dict[dt.datetime, int]:
     """The driver's executemany of ``INSERT ... ON CONFLICT DO NOTHING``, then our new rows.
 
@@ -895,7 +920,7 @@ def _insert_sqlite(
         elif name == "received_at":  # one ingest time for the whole request
             bound.append([process(values[0])] * len(values))
         elif name == "observed_at":
-            bound.append(_sqlite_time_texts(values, process))
+            bound.append(_sqlite_time_texts(values, process, micros))
         else:
             bound.append(list(map(process, values)))
     statement = (
@@ -1119,7 +1144,8 @@ def ingest_readings(
         **{name: finite(derived[name]) for name in DERIVED_COLUMNS},
         **{name: flags[name].astype(int).tolist() for name in QC_COLUMNS},
     }
-    inserted = _insert_new(session, columns)
+    micros = _epoch_micros(columns["observed_at"])
+    inserted = _insert_new(session, columns, micros)
     raced = [c for c in candidates if c.reading.observed_at not in inserted]
     if raced:
         # Another request stored these between our check and our insert.
@@ -1135,7 +1161,14 @@ def ingest_readings(
     if neighbour_changes:
         for chunk in _chunks(neighbour_changes):
             session.execute(update(Reading), list(chunk))
-    refresh_rollups(session, station_pk=station.pk, inserted=inserted, changed=neighbour_changes)
+    refresh_rollups(
+        session,
+        station_pk=station.pk,
+        inserted=inserted,
+        changed=neighbour_changes,
+        new_rows=columns,
+        new_micros=micros,
+    )
     result.accepted = len(inserted)
     result.stored_ids = sorted(inserted.values())
     result.rejected.sort(key=lambda item: item.index)

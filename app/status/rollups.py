@@ -228,25 +228,31 @@ def _runs(quarters: Iterable[int]) -> list[tuple[int, int]]:
     return [(start, end) for start, end in runs]
 
 
-def refresh_quarters(*, session: Session, station_pk: int, quarters: Iterable[int]) -> None:
-    """Recompute the station's rollup rows for these quarter starts from its readings.
-
-    On PostgreSQL a per-station advisory lock, held to the end of the transaction, makes a
-    second request for the same station wait and then recompute from readings that include
-    the first one's (two requests each counting only their own rows would otherwise race).
-    SQLite writers already hold the database lock from their first write.
-    """
-    runs = _runs(quarters)
-    if not runs:
-        return
-    connection = session.connection()
-    dialect = connection.dialect.name
-    if dialect == "postgresql":
+def _lock_station(connection: Any, station_pk: int) -> None:
+    """On PostgreSQL, the station's advisory lock to the end of the transaction: a second
+    request for the same station waits, then sees the first one's readings and rollups
+    (two requests each counting only their own rows would otherwise race). SQLite writers
+    already hold the database lock from their first write."""
+    if connection.dialect.name == "postgresql":
         connection.execute(
             text("SELECT pg_advisory_xact_lock(:namespace, :station)"),
             {"namespace": _PG_LOCK_NAMESPACE, "station": station_pk},
         )
-    removal, recount = _refresh_statements(dialect)
+
+
+def refresh_quarters(*, session: Session, station_pk: int, quarters: Iterable[int]) -> None:
+    """Recompute the station's rollup rows for these quarter starts from its readings
+    (under the station's lock, see :func:`_lock_station`)."""
+    runs = _runs(quarters)
+    if not runs:
+        return
+    connection = session.connection()
+    _lock_station(connection, station_pk)
+    _recount(connection, station_pk, runs)
+
+
+def _recount(connection: Any, station_pk: int, runs: Sequence[tuple[int, int]]) -> None:
+    removal, recount = _refresh_statements(connection.dialect.name)
     for start, end in runs:
         values = {
             "station_pk": station_pk,
@@ -281,20 +287,138 @@ def _refresh_statements(dialect: str) -> tuple[Any, Any]:
     return removal, recount
 
 
+@functools.cache
+def _held_quarters_statement() -> Any:
+    table = ReadingRollup.__table__
+    return select(table.c.quarter_start).where(
+        table.c.station_pk == bindparam("station_pk"),
+        table.c.quarter_start >= bindparam("first"),
+        table.c.quarter_start <= bindparam("last"),
+    )
+
+
+_MICROSECONDS = 1_000_000
+
+
+def rows_from_columns(
+    *, station_pk: int, micros: np.ndarray, columns: Mapping[str, Sequence[Any]]
+) -> list[tuple[Any, ...]]:
+    """Rollup rows (:data:`COLUMNS` order) of one station's readings given as columns.
+
+    The same definition as :func:`aggregate_select`, worked out in numpy, for readings the
+    caller holds in memory: ``micros`` their ``observed_at`` in microseconds since 1970
+    (UTC, in time order), ``columns`` their ``qc_overall`` and the summarised and good-input
+    values (None for a missing value). Every quarter the readings touch gets a row, and
+    the row counts only these readings: the caller must know they are all the quarter has.
+    """
+    micros = np.asarray(micros, dtype=np.int64)
+    if micros.size == 0:
+        return []
+    if np.any(micros[1:] < micros[:-1]):
+        raise ValueError("rows_from_columns needs the readings in time order")
+    seconds = micros // _MICROSECONDS
+    quarter = seconds - seconds % QUARTER_SECONDS
+    starts = np.flatnonzero(np.concatenate(([True], quarter[1:] != quarter[:-1])))
+
+    def count(condition: np.ndarray) -> list[int]:
+        return np.add.reduceat(condition.astype(np.int64), starts).tolist()
+
+    qc = np.asarray(columns["qc_overall"], dtype=np.int64)
+    usable = qc != QC_FAIL
+    values = {
+        name: np.asarray(columns[name], dtype=float)  # None becomes NaN
+        for name in {*SUMMARISED, *GOOD_INPUTS}
+    }
+    out: dict[str, list[Any]] = {
+        "quarter_start": quarter[starts].tolist(),
+        "readings": np.diff(np.append(starts, micros.size)).tolist(),
+        "off_minute": count(micros % (60 * _MICROSECONDS) != 0),
+        "minute_mask": np.bitwise_or.reduceat(
+            np.left_shift(1, (seconds % QUARTER_SECONDS) // 60), starts
+        ).tolist(),
+        **{column: count(qc == flag) for flag, column in QC_FLAG_COLUMNS.items()},
+    }
+
+    def total(kept: np.ndarray, value: np.ndarray, counted: list[int]) -> dict[str, list[Any]]:
+        # NULL where the quarter has no value, as SQL's aggregates over no rows give.
+        def where_counted(results: np.ndarray) -> list[Any]:
+            return [r if n else None for r, n in zip(results.tolist(), counted, strict=True)]
+
+        return {
+            "min": where_counted(np.fmin.reduceat(np.where(kept, value, np.nan), starts)),
+            "max": where_counted(np.fmax.reduceat(np.where(kept, value, np.nan), starts)),
+            "sum": where_counted(np.add.reduceat(np.where(kept, value, 0.0), starts)),
+        }
+
+    for name in SUMMARISED:
+        kept = usable & np.isfinite(values[name])
+        counted = count(kept)
+        out[f"{name}_n"] = counted
+        for part, results in total(kept, values[name], counted).items():
+            out[f"{name}_{part}"] = results
+    good = usable & np.all([np.isfinite(values[name]) for name in GOOD_INPUTS], axis=0)
+    out["good"] = count(good)
+    for column, name in GOOD_SUMS.items():
+        out[column] = total(good, values[name], out["good"])["sum"]
+    out["station_pk"] = [station_pk] * starts.size
+    return list(zip(*(out[name] for name in COLUMNS), strict=True))
+
+
+def _insert_rows(connection: Any, rows: Sequence[tuple[Any, ...]]) -> None:
+    table = ReadingRollup.__table__
+    if connection.dialect.name == "sqlite":
+        # The driver's executemany: SQLAlchemy's per-row parameter handling of a few
+        # dozen rows of 34 columns costs more than working them out.
+        cursor = connection.connection.driver_connection.cursor()
+        try:
+            cursor.executemany(
+                f"INSERT INTO {table.name} ({', '.join(COLUMNS)}) "
+                f"VALUES ({', '.join('?' for _ in COLUMNS)})",
+                rows,
+            )
+        finally:
+            cursor.close()
+        return
+    connection.execute(insert(table), [dict(zip(COLUMNS, row, strict=True)) for row in rows])
+
+
 def refresh_rollups(
     session: Session,
     *,
     station_pk: int,
     inserted: Mapping[dt.datetime, int],
     changed: Sequence[Mapping[str, Any]] = (),
+    new_rows: Mapping[str, Sequence[Any]] | None = None,
+    new_micros: np.ndarray | None = None,
 ) -> None:
-    """The ingest's call: refresh the quarters of the readings it stored and of the stored
-    neighbours whose QC flags it changed.
+    """The ingest's call: bring the rollups of the quarters it touched up to date.
 
-    ``inserted`` maps observed_at to id for the rows actually inserted (duplicates are not in
-    it); ``changed`` are the neighbours' flag updates (dicts with the reading ``id``).
+    ``inserted`` maps observed_at to id for the rows actually inserted (duplicates are not
+    in it); ``changed`` are the stored neighbours' flag updates (dicts with the reading
+    ``id``). ``new_rows``, when given, are the rows the ingest offered to the insert as
+    columns (``observed_at`` among them, in time order) and ``new_micros`` their times in
+    microseconds since 1970.
+
+    A quarter that had no rollup row before (checked under the station's lock) held no
+    readings: its row is worked out from ``new_rows`` in memory (:func:`rows_from_columns`),
+    without reading back what was just written. Every other touched quarter, and all of
+    them when ``new_rows`` is not given, is recomputed from the readings in SQL.
     """
-    quarters = {quarter_of(moment) for moment in inserted}
+    in_memory = new_rows is not None and new_micros is not None and bool(inserted)
+    if in_memory:
+        micros = np.asarray(new_micros, dtype=np.int64)
+        seconds = micros // _MICROSECONDS
+        quarter_starts = seconds - seconds % QUARTER_SECONDS
+        ours = (
+            np.ones(micros.size, dtype=bool)
+            if len(inserted) == micros.size
+            # Rows another request stored first are not ours to count.
+            else np.array([t in inserted for t in new_rows["observed_at"]], dtype=bool)
+        )
+        new_quarters = set(np.unique(quarter_starts[ours]).tolist())
+    else:
+        new_quarters = {quarter_of(moment) for moment in inserted}
+    quarters = set(new_quarters)
     ids = [int(change["id"]) for change in changed]
     for chunk_start in range(0, len(ids), 500):
         chunk = ids[chunk_start : chunk_start + 500]
@@ -304,7 +428,35 @@ def refresh_rollups(
                 select(Reading.observed_at).where(Reading.id.in_(chunk))
             )
         )
-    refresh_quarters(session=session, station_pk=station_pk, quarters=quarters)
+    if not quarters:
+        return
+    connection = session.connection()
+    _lock_station(connection, station_pk)
+    fresh: set[int] = set()
+    if in_memory:
+        held = {
+            quarter
+            for (quarter,) in connection.execute(
+                _held_quarters_statement(),
+                {"station_pk": station_pk, "first": min(new_quarters), "last": max(new_quarters)},
+            )
+        }
+        # A neighbour whose flag changed is a stored reading, so its quarter is held.
+        fresh = new_quarters - held
+    if fresh:
+        index = np.flatnonzero(ours & np.isin(quarter_starts, list(fresh)))
+        names = ("qc_overall", *SUMMARISED, *GOOD_INPUTS)
+        if index[-1] - index[0] + 1 == index.size:
+            # The usual request: in time order, so its fresh quarters are one run of rows.
+            run = slice(int(index[0]), int(index[-1]) + 1)
+            picked = {name: new_rows[name][run] for name in names}
+        else:
+            picked = {name: [new_rows[name][i] for i in index.tolist()] for name in names}
+        _insert_rows(
+            connection,
+            rows_from_columns(station_pk=station_pk, micros=micros[index], columns=picked),
+        )
+    _recount(connection, station_pk, _runs(quarters - fresh))
 
 
 def rebuild(*, session: Session, station_pks: Sequence[int] | None = None) -> None:

@@ -143,6 +143,69 @@ def test_rollups_follow_ingest_with_duplicates_and_late_readings(session, make_s
     assert _assert_rollups_match(session, [station.pk]) >= 8
 
 
+def test_new_quarters_worked_out_in_memory_equal_the_sql_aggregate(
+    session, make_station, monkeypatch
+):
+    """Quarters that held nothing before a request get their rows from the request's own
+    columns (rows_from_columns), the others from SQL; both equal the readings, and a
+    rebuild with the SQL aggregate gives the same rows."""
+    from app.status import rollups
+
+    in_memory: list[int] = []
+    original = rollups.rows_from_columns
+
+    def counting(**kwargs: Any) -> list[tuple[Any, ...]]:
+        rows = original(**kwargs)
+        in_memory.append(len(kwargs["micros"]))
+        return rows
+
+    monkeypatch.setattr(rollups, "rows_from_columns", counting)
+    station = make_station()  # alkalinity from the readings: items without it get no chemistry
+    start = NOW.replace(minute=0) - dt.timedelta(hours=6)
+    batch = []
+    for m in range(0, 95):
+        at = start + dt.timedelta(minutes=m, seconds=17 * (m % 9 == 4), microseconds=5 * (m == 30))
+        item = _item(at, ph=13.5 if m == 50 else 7.71)  # one reading fails QC
+        if m % 3:
+            item["alkalinity_umol_kg"] = 2150.0 + m
+        batch.append(item)
+    first = ingest_readings(session=session, station=station, source="dev", items=batch, now=NOW)
+    assert first.accepted == len(batch)
+    assert in_memory == [len(batch)]  # seven new quarters, all worked out in memory
+    # A second request continuing the last quarter (held: recounted in SQL) and opening new
+    # ones (in memory), with the readings of the held quarter left out of the memory path.
+    more = [_item(start + dt.timedelta(minutes=m)) for m in range(96, 140)]
+    second = ingest_readings(session=session, station=station, source="dev", items=more, now=NOW)
+    assert second.accepted == len(more)
+    assert in_memory[1] == len([m for m in range(96, 140) if m >= 105])
+    session.flush()
+    assert _assert_rollups_match(session, [station.pk]) == 10
+    kept = _stored_rollups(session.connection(), [station.pk])
+    rebuild(session=session, station_pks=[station.pk])
+    rebuilt = _stored_rollups(session.connection(), [station.pk])
+    assert set(rebuilt) == set(kept)
+    for key, row in rebuilt.items():
+        for column, value in row.items():
+            if isinstance(value, float):
+                assert kept[key][column] == pytest.approx(value, rel=1e-12), (key, column)
+            else:
+                assert kept[key][column] == value, (key, column)
+
+
+def test_rows_from_columns_refuse_readings_out_of_time_order():
+    import numpy as np
+
+    from app.status.rollups import rows_from_columns
+
+    columns = {name: [1.0, 1.0] for name in (*SUMMARISED, *GOOD_INPUTS)}
+    with pytest.raises(ValueError, match="time order"):
+        rows_from_columns(
+            station_pk=1,
+            micros=np.array([2_000_000, 1_000_000]),
+            columns={**columns, "qc_overall": [1, 1]},
+        )
+
+
 def test_rollups_follow_orm_writes(session, make_station):
     station = make_station()
     base = NOW.replace(minute=0) - dt.timedelta(days=2)
