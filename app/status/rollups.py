@@ -54,6 +54,7 @@ from sqlalchemy import (
     insert,
     inspect,
     literal,
+    literal_column,
     select,
     text,
 )
@@ -145,33 +146,43 @@ COLUMNS: tuple[str, ...] = tuple(c.name for c in ReadingRollup.__table__.columns
 # --------------------------------------------------------------------------------------
 
 
+def _number(value: int) -> ColumnElement[Any]:
+    """An integer written into the SQL, not bound: the aggregate has some sixty constants,
+    and binding each costs SQLAlchemy more per execution than the database's work on a
+    quarter."""
+    return literal_column(str(int(value)), Integer)
+
+
 def _epoch_seconds(dialect: str) -> ColumnElement[Any]:
     """Whole seconds since 1970 of ``observed_at`` (UTC), in SQL."""
     if dialect == "sqlite":
         # Stored as naive UTC text 'YYYY-MM-DD HH:MM:SS.ffffff'; %s drops the fraction.
-        return cast(func.strftime("%s", Reading.observed_at), Integer)
+        return cast(func.strftime(literal_column("'%s'"), Reading.observed_at), Integer)
     return cast(func.floor(extract("epoch", Reading.observed_at)), BigInteger)
 
 
 def _off_minute(dialect: str) -> ColumnElement[bool]:
     """True when ``observed_at`` is not on a whole minute (seconds or a fraction)."""
     if dialect == "sqlite":
-        return cast(func.substr(Reading.observed_at, 18), Float) != 0
+        return cast(func.substr(Reading.observed_at, _number(18)), Float) != _number(0)
     # The seconds field with its fraction, in microseconds; every UTC offset is whole minutes.
-    return extract("microseconds", Reading.observed_at) != 0
+    return extract("microseconds", Reading.observed_at) != _number(0)
 
 
 def aggregate_select(dialect: str, *conditions: ColumnElement[bool]) -> Any:
     """SELECT of rollup rows (columns in :data:`COLUMNS` order) from the readings matching
     ``conditions``, grouped by station and quarter."""
     seconds = _epoch_seconds(dialect)
-    quarter = seconds - seconds % QUARTER_SECONDS
-    minute_bit = literal(1).op("<<")(cast((seconds % QUARTER_SECONDS) // 60, Integer))
-    usable = Reading.qc_overall != QC_FAIL
+    quarter = seconds - seconds % _number(QUARTER_SECONDS)
+    minute_bit = _number(1).op("<<")(
+        cast((seconds % _number(QUARTER_SECONDS)) // _number(60), Integer)
+    )
+    usable = Reading.qc_overall != _number(QC_FAIL)
     good = and_(usable, *(getattr(Reading, name).is_not(None) for name in GOOD_INPUTS))
 
     def count_if(condition: ColumnElement[bool]) -> ColumnElement[Any]:
-        return cast(func.coalesce(func.sum(case((condition, 1), else_=0)), 0), Integer)
+        one, zero = _number(1), _number(0)
+        return cast(func.coalesce(func.sum(case((condition, one), else_=zero)), zero), Integer)
 
     values: dict[str, ColumnElement[Any]] = {
         "station_pk": Reading.station_pk,
@@ -181,7 +192,7 @@ def aggregate_select(dialect: str, *conditions: ColumnElement[bool]) -> Any:
         # The sum of the distinct bits is their OR.
         "minute_mask": cast(func.sum(distinct(minute_bit)), Integer),
         **{
-            column: count_if(Reading.qc_overall == flag)
+            column: count_if(Reading.qc_overall == _number(flag))
             for flag, column in QC_FLAG_COLUMNS.items()
         },
     }
