@@ -245,7 +245,10 @@ def standard_uncertainty(
     size = int(np.prod(shape))
 
     def flat(value: Any) -> np.ndarray:
-        return np.broadcast_to(np.asarray(value, dtype=np.float64), shape).reshape(size)
+        array = np.asarray(value, dtype=np.float64)
+        if array.shape == shape:  # np.broadcast_to costs ~10 us a call; most need none
+            return array.reshape(size)
+        return np.broadcast_to(array, shape).reshape(size)
 
     flat_given = {name: flat(value) for name, value in given.items()}
     flat_options = {
