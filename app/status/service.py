@@ -156,13 +156,7 @@ def stations_columns(
     columns: list[Sequence[Any]] = (
         list(zip(*rows, strict=True)) if rows else [() for _ in range(len(names) + 2)]
     )
-    if sqlite:
-        times = np.array(columns[1], dtype="datetime64[us]")
-    else:
-        times = np.array(
-            [t.astimezone(UTC).replace(tzinfo=None) for t in columns[1]], dtype="datetime64[us]"
-        )
-    arrays: dict[str, np.ndarray] = {"observed_at": times}
+    arrays: dict[str, np.ndarray] = {"observed_at": _utc_times(columns[1], sqlite=sqlite)}
     for name, values in zip(names, columns[2:], strict=True):
         if name in _FLAG_COLUMNS:
             arrays[name] = np.array(values, dtype=np.int64)
@@ -171,6 +165,58 @@ def stations_columns(
         else:
             arrays[name] = np.array(values, dtype=float)  # None becomes NaN
     return rollups.by_station(np.array(columns[0], dtype=np.int64), arrays, station_pks)
+
+
+@functools.lru_cache(maxsize=4)
+def _good_water_query(sqlite: bool) -> Any:
+    """The query of :func:`good_water_columns`, built once (parameters ``station_pk``,
+    ``start`` and ``end``)."""
+    observed = type_coerce(Reading.observed_at, String) if sqlite else Reading.observed_at
+    return (
+        select(observed, *(getattr(Reading, name) for name in _GOOD_WATER_COLUMNS))
+        .where(
+            Reading.station_pk == bindparam("station_pk"),
+            Reading.observed_at >= bindparam("start", type_=Reading.observed_at.type),
+            Reading.observed_at < bindparam("end", type_=Reading.observed_at.type),
+            Reading.qc_overall != QC_FAIL,
+            *(getattr(Reading, name).is_not(None) for name in _GOOD_COLUMNS[1:]),
+        )
+        .order_by(Reading.observed_at, Reading.id)
+    )
+
+
+def good_water_columns(
+    *, session: Session, station_pks: Sequence[int], start: datetime, end: datetime
+) -> dict[int, dict[str, np.ndarray] | None]:
+    """Per station, its good readings in [start, end) (not failed, chemistry derived) as
+    columns: ``observed_at`` and the alkalinity, salinity and DIC that carry the water to
+    a tank's temperature in one solve. The database leaves the other readings out, and
+    the columns a tank's day does not need are not read (a day of two stations is some
+    3,000 rows, and each value read costs more than the arithmetic on it). None for a
+    station with a good reading lacking its stored DIC: :func:`stations_columns` then."""
+    sqlite = session.get_bind().dialect.name == "sqlite"
+    out: dict[int, dict[str, np.ndarray] | None] = {}
+    for pk in station_pks:
+        rows = rollups.driver_rows(
+            session.connection(),
+            _good_water_query(sqlite),
+            {"station_pk": pk, "start": start, "end": end},
+        )
+        columns = list(zip(*rows, strict=True)) if rows else [()] * (1 + len(_GOOD_WATER_COLUMNS))
+        arrays = {"observed_at": _utc_times(columns[0], sqlite=sqlite)}
+        for name, values in zip(_GOOD_WATER_COLUMNS, columns[1:], strict=True):
+            arrays[name] = np.array(values, dtype=float)  # None becomes NaN
+        out[pk] = arrays if np.all(np.isfinite(arrays["dic_umol_kg"])) else None
+    return out
+
+
+def _utc_times(values: Sequence[Any], *, sqlite: bool) -> np.ndarray:
+    """Stored times as naive UTC ``datetime64[us]`` (SQLite gives its naive UTC text)."""
+    if sqlite:
+        return np.array(values, dtype="datetime64[us]")
+    return np.array(
+        [t.astimezone(UTC).replace(tzinfo=None) for t in values], dtype="datetime64[us]"
+    )
 
 
 def latest_readings(
@@ -270,20 +316,27 @@ def _tank_series_from_columns(
 ) -> TankSeries:
     """:func:`tank_prediction_series` over columns from :func:`station_columns` (with the
     stored DIC, when read and present for every good reading, for one solve)."""
-    good = _good_mask(columns)
+    # Columns of good readings only (:func:`good_water_columns`) carry no QC flag.
+    good = (
+        _good_mask(columns)
+        if "qc_overall" in columns
+        else np.ones(columns["observed_at"].size, dtype=bool)
+    )
     if not np.any(good):
         return TankSeries([], np.empty(0), None)
     dic = columns["dic_umol_kg"][good] if "dic_umol_kg" in columns else None
+    use_dic = dic is not None and bool(np.all(np.isfinite(dic)))
     prediction = predict_tank_water(
         site=site,
         tank=tank,
         station=station,
-        temperature=columns["temperature_c"][good],
+        # Unused when the DIC carries the water (and then not read).
+        temperature=columns["temperature_c"][good] if not use_dic else np.nan,
         salinity=columns["salinity"][good],
-        ph_total=columns["ph_total"][good],
+        ph_total=columns["ph_total"][good] if not use_dic else np.nan,
         alkalinity=columns["alkalinity_used_umol_kg"][good],
         with_uncertainty=False,  # the series carries values only
-        dic=dic if dic is not None and np.all(np.isfinite(dic)) else None,
+        dic=dic if use_dic else None,
     )
     return _series(good_times=columns["observed_at"][good], prediction=prediction)
 
@@ -329,6 +382,8 @@ _GOOD_COLUMNS = ("qc_overall", "ph_total", "alkalinity_used_umol_kg", "temperatu
 #: What a tank's day reads of its source station's readings (the stored DIC carries the
 #: water to the culture temperature in one solve).
 _TANK_DAY_COLUMNS = (*_GOOD_COLUMNS, "dic_umol_kg")
+#: What :func:`good_water_columns` reads of each good reading besides its time.
+_GOOD_WATER_COLUMNS = ("alkalinity_used_umol_kg", "salinity", "dic_umol_kg")
 
 
 def _good_mask(columns: dict[str, np.ndarray]) -> np.ndarray:
@@ -757,13 +812,16 @@ def site_status(
     latest = latest_readings(session=session, station_pks=station_pks, before=window.as_of)
     fed = sorted({t.source_station_pk for t in tanks})
     # One reading either side of the day so that pieces crossing midnight are counted.
-    tank_days = stations_columns(
-        session=session,
-        station_pks=fed,
-        start=window.start - max_gap,
-        end=window.as_of + max_gap,
-        names=_TANK_DAY_COLUMNS,
-    )
+    day_span = {"start": window.start - max_gap, "end": window.as_of + max_gap}
+    found = good_water_columns(session=session, station_pks=fed, **day_span)
+    lacking = [pk for pk, columns in found.items() if columns is None]
+    tank_days = {pk: columns for pk, columns in found.items() if columns is not None}
+    if lacking:  # readings stored without their DIC: every column, filtered here
+        tank_days.update(
+            stations_columns(
+                session=session, station_pks=lacking, names=_TANK_DAY_COLUMNS, **day_span
+            )
+        )
     latest_good: dict[int, Reading | None] = {}
     for pk in sorted({*fed, *(s.pk for s in _fill_sources(stations, tanks))}):
         # Usually the station's latest reading is good: then it is the latest good one
