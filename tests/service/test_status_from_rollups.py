@@ -100,3 +100,34 @@ def test_today_counts_up_to_now(session, make_site, make_station):
     assert figures["readings"] == expected["readings"]
     assert figures["expected_interval_minutes"] == pytest.approx(expected["interval_minutes"])
     assert figures["completeness_percent"] == pytest.approx(expected["completeness"])
+
+
+def test_tank_day_is_the_same_without_a_stored_dic(session, make_site, make_station, make_tank):
+    """A tank's day reads only its source's good readings with their stored DIC; a station
+    with a good reading lacking the DIC is read whole and solved from pH and alkalinity
+    instead. Both are the same closed-system water, so the day's minutes agree."""
+    site = make_site(timezone=ZONE)
+    station = make_station(site=site)
+    tank = make_tank(site=site, station=station, omega_floor=1.5)
+    times = [DAY_START + dt.timedelta(minutes=10 * i) for i in range(144)]
+    readings = [
+        stored_reading(station, t, ph=7.85 + 0.2 * math.sin(i / 9.0),
+                       qc_overall=4 if i == 40 else 1)
+        for i, t in enumerate(times)
+    ]
+    session.add_all(readings)
+    session.commit()
+    now = DAY_END + dt.timedelta(days=1)
+
+    def tank_day() -> dict:
+        [status] = site_status(session=session, site=site, day=DAY, now=now)["tanks"]
+        assert status["tank_id"] == tank.id
+        return status
+
+    with_dic = tank_day()
+    assert 0 < with_dic["minutes_below_floor"] < with_dic["minutes_with_data"]
+    readings[7].dic_umol_kg = None
+    session.commit()
+    without = tank_day()
+    for key in ("minutes_below_floor", "minutes_below_floor_untreated", "minutes_with_data"):
+        assert without[key] == pytest.approx(with_dic[key], rel=1e-9), key
