@@ -535,9 +535,7 @@ _CONTEXT_MARKS = (
             [literal_column("'fixed'"), literal_column("'salinity_line'")]
         ),
         Integer,
-    ).label(
-        "from_station"
-    ),
+    ).label("from_station"),
     cast(Reading.omega_aragonite.is_not(None), Integer).label("available"),
 )
 
