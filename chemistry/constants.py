@@ -22,6 +22,7 @@ bias (Lueker2000).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping
 from functools import cached_property
@@ -902,8 +903,30 @@ def compute_constants(temperature, salinity, pressure, carbonic, boron, with_nut
     """Internal: the constant set without input checks (floats or broadcast arrays).
 
     ``with_nutrients=False`` skips the phosphate and silicate constants (returned as absent)
-    when the caller knows both nutrients are zero.
+    when the caller knows both nutrients are zero. For one water (floats) the set is
+    remembered: a dose search or an uncertainty budget solves the same water again and
+    again, and the constants are a third of a scalar solve. The caller gets its own dict.
     """
+    if (
+        isinstance(temperature, float)
+        and isinstance(salinity, float)
+        and isinstance(pressure, float)
+    ):
+        return dict(
+            _constants_of_one_water(
+                float(temperature), float(salinity), float(pressure), carbonic, boron,
+                with_nutrients,
+            )
+        )
+    return _compute_constants(temperature, salinity, pressure, carbonic, boron, with_nutrients)
+
+
+@functools.lru_cache(maxsize=512)
+def _constants_of_one_water(temperature, salinity, pressure, carbonic, boron, with_nutrients):
+    return _compute_constants(temperature, salinity, pressure, carbonic, boron, with_nutrients)
+
+
+def _compute_constants(temperature, salinity, pressure, carbonic, boron, with_nutrients):
     x = _Terms(temperature, salinity)
     t = x.t
     s = x.s

@@ -295,10 +295,20 @@ def dose_for_target(
     if start >= target:
         return DoseAdvice(chemical, 0.0, 0.0, 0.0, 0.0, water)
 
-    def shortfall(mg_per_l: float) -> float:
-        return float(add_chemical(water, chemical, mg_per_l).omega_aragonite) - target
+    # The additions are proportional to the dose (one density for the water), so the
+    # search scales them instead of working out the density again at every step.
+    alkalinity_per_mg_per_l, dic_per_mg_per_l = dose_additions(
+        chemical, 1.0, water.temperature, water.salinity
+    )
 
-    alkalinity_per_mg_per_l, _ = dose_additions(chemical, 1.0, water.temperature, water.salinity)
+    def shortfall(mg_per_l: float) -> float:
+        dosed = _resolve(
+            water,
+            water.alkalinity + alkalinity_per_mg_per_l * mg_per_l,
+            water.dic + dic_per_mg_per_l * mg_per_l,
+        )
+        return float(dosed.omega_aragonite) - target
+
     largest_dose = MAX_ALKALINITY_ADDED / float(alkalinity_per_mg_per_l)
     if shortfall(largest_dose) < 0:
         instead = (
