@@ -14,7 +14,6 @@ Two requests racing with the same reading are settled by the unique constraints
 
 from __future__ import annotations
 
-import bisect
 import datetime as dt
 import functools
 import logging
@@ -44,6 +43,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Session
 
+from app.readings import recent
 from app.readings.models import Reading
 from app.readings.qc import (
     QcFlag,
@@ -606,30 +606,47 @@ def _sqlite_fetchall(
         cursor.close()
 
 
+@dataclass
+class _Context:
+    """The stored neighbours QC read (``columns``, see :func:`_context_columns`) and, on
+    SQLite, what the recent-values memory needs to keep them after the commit: the
+    window read (microseconds since 1970, both ends included) and the readings table's
+    largest id when it was read."""
+
+    columns: dict[str, np.ndarray]
+    start_us: int
+    end_us: int
+    table_max_id: int | None = None
+
+
 def _context_columns(
     session: Session,
-    station_pk: int,
+    station: Station,
     start: dt.datetime,
     end: dt.datetime,
     *,
     affected: tuple[dt.datetime, dt.datetime],
-) -> dict[str, np.ndarray]:
+) -> _Context:
     """The station's stored readings in [start, end], time order, as numpy columns.
 
     QC reads about a day of neighbours for every request, so the rows are taken as plain
     tuples and turned into arrays in bulk: per-row datetime objects (and, on SQLite,
     parsing each stored time in Python) cost more than the QC itself. ``affected`` is the
     span whose stored flags may change (``"affected"`` marks those rows); ids and flags
-    are only meaningful there.
+    are only meaningful there. On SQLite the values the last committed request of this
+    process read and stored are reused when still current (:mod:`app.readings.recent`).
     """
     connection = session.connection()
+    start_us, end_us = (int(v) for v in _epoch_micros([start, end]))
     if connection.dialect.name == "sqlite":
-        columns = _sqlite_context(connection, station_pk, start, end, affected)
-        if columns is not None:
-            return columns
+        found = _sqlite_context(connection, station, (start, end), (start_us, end_us), affected)
+        if found is not None:
+            columns, table_max_id = found
+            return _Context(columns, start_us, end_us, table_max_id)
     # SQLite's two parts disagreed (they cannot within one transaction) or PostgreSQL:
     # every column of every row in one query.
-    return _context_columns_whole(connection, station_pk, start, end, affected)
+    columns = _context_columns_whole(connection, station.pk, start, end, affected)
+    return _Context(columns, start_us, end_us)
 
 
 def _context_arrays(
@@ -651,44 +668,69 @@ def _sqlite_seconds(texts: Sequence[str]) -> np.ndarray:
     return np.array(texts, dtype="datetime64[us]").astype(np.int64) / 1e6
 
 
+def _memory_key(station: Station) -> tuple[int, Any]:
+    # created_at too: a station deleted (with its readings) and made again gets a new one.
+    return (station.pk, station.created_at)
+
+
 def _sqlite_context(
     connection: Connection,
-    station_pk: int,
-    start: dt.datetime,
-    end: dt.datetime,
+    station: Station,
+    window: tuple[dt.datetime, dt.datetime],
+    window_us: tuple[int, int],
     affected: tuple[dt.datetime, dt.datetime],
-) -> dict[str, np.ndarray] | None:
-    """``_context_columns`` on SQLite's own cursor, values and flags read apart.
+) -> tuple[dict[str, np.ndarray], int] | None:
+    """``_context_columns`` on SQLite's own cursor, values and flags read apart; with the
+    readings table's largest id at the time.
 
     Every selected column comes back from the driver as SQLAlchemy would give it (text,
-    floats, integers: no result processing). The flags' rows are the values' rows with
-    a time in ``affected``, in the same order; None if they do not line up.
+    floats, integers: no result processing). The values kept by the last committed
+    request (``recent.recall``) stand for the part of the window they cover, and only the
+    rest is read. The flags' rows are the values' rows with a time in ``affected``, in the
+    same order; None if they do not line up.
     """
     values_query, flags_query = _sqlite_context_queries()
-    rows = _sqlite_fetchall(
-        connection, values_query, {"station_pk": station_pk, "start": start, "end": end}
-    )
+    cursor = connection.connection.driver_connection.cursor()
+    try:
+        cursor.execute(f"SELECT coalesce(max(id), 0) FROM {Reading.__table__.name}")
+        (table_max_id,) = cursor.fetchone()
+    finally:
+        cursor.close()
+    start, end = window
+    start_us, end_us = window_us
+    key = _memory_key(station)
+    kept = recent.recall(key, start_us=start_us, table_max_id=table_max_id)
+    parts: list[Mapping[str, np.ndarray]] = []
+    read_from: dt.datetime | None = start
+    if kept is not None:
+        parts.append(recent.between(kept, start_us, end_us))
+        read_from = (
+            None if kept.hi_us >= end_us else _EPOCH + dt.timedelta(microseconds=kept.hi_us + 1)
+        )
+    if read_from is not None:
+        rows = _sqlite_fetchall(
+            connection, values_query, {"station_pk": station.pk, "start": read_from, "end": end}
+        )
+        if rows:
+            columns = dict(zip(_VALUE_NAMES, zip(*rows, strict=True), strict=True))
+        else:
+            columns = {name: () for name in _VALUE_NAMES}
+        parts.append(_context_arrays(columns, _sqlite_seconds(columns["observed_at"])))
+    out = recent.joined(parts) if len(parts) > 1 else dict(parts[0])
     flag_rows = _sqlite_fetchall(
         connection,
         flags_query,
-        {"station_pk": station_pk, "start": affected[0], "end": affected[1]},
+        {"station_pk": station.pk, "start": affected[0], "end": affected[1]},
     )
-    if rows:
-        columns = dict(zip(_VALUE_NAMES, zip(*rows, strict=True), strict=True))
-    else:
-        columns = {name: () for name in _VALUE_NAMES}
-    texts = columns["observed_at"]
-    time_text = Reading.__table__.c.observed_at.type.dialect_impl(
-        connection.dialect
-    ).bind_processor(connection.dialect)
-    low = bisect.bisect_left(texts, time_text(affected[0]))
-    high = bisect.bisect_right(texts, time_text(affected[1]))
-    if high - low != len(flag_rows) or any(
-        row[0] != text for row, text in zip(flag_rows, texts[low:high], strict=False)
-    ):
+    seconds = out["seconds"]
+    low = int(np.searchsorted(seconds, _epoch_seconds(affected[0]), side="left"))
+    high = int(np.searchsorted(seconds, _epoch_seconds(affected[1]), side="right"))
+    flag_times = _sqlite_seconds([row[0] for row in flag_rows])
+    if high - low != len(flag_rows) or not np.array_equal(flag_times, seconds[low:high]):
+        if kept is not None:  # the kept values disagree with the table: never again
+            recent.forget(key)
         return None
-    out = _context_arrays(columns, _sqlite_seconds(texts))
-    count = len(texts)
+    count = seconds.size
     out["affected"] = np.zeros(count, dtype=bool)
     out["affected"][low:high] = True
     flags = list(zip(*flag_rows, strict=True)) if flag_rows else [()] * (2 + len(QC_COLUMNS))
@@ -696,7 +738,7 @@ def _sqlite_context(
     for position, name in enumerate(("id", *QC_COLUMNS), start=1):
         out[name] = np.zeros(count, dtype=np.int64)
         out[name][low:high] = np.array(flags[position], dtype=np.int64)
-    return out
+    return out, table_max_id
 
 
 def _context_columns_whole(
@@ -754,8 +796,9 @@ def _quality_control(
     alkalinity_input: np.ndarray,
     alkalinity_source: Sequence[str | None],
     derived_available: np.ndarray,
-) -> tuple[dict[str, np.ndarray], list[dict[str, Any]]]:
-    """QC flags for the new readings and the changed flags of stored neighbours.
+) -> tuple[dict[str, np.ndarray], list[dict[str, Any]], _Context]:
+    """QC flags for the new readings, the changed flags of stored neighbours and the stored
+    neighbours read.
 
     The new readings are tested together with the station's stored readings around
     them, in time order: a backfilled reading is judged against its neighbours in
@@ -768,13 +811,14 @@ def _quality_control(
     # Stored flags can change from a gap before the first new reading (its spike test gains
     # a neighbour) to a window after the last (their rate of change sees it); testing
     # those needs a window and a gap more on each side.
-    stored = _context_columns(
+    context = _context_columns(
         session,
-        station.pk,
+        station,
         first - window - gap,
         last + window + gap,
         affected=(first - gap, last + window),
     )
+    stored = context.columns
 
     count = stored["id"].size
     # datetime.timestamp() of an aware time is _epoch_seconds, in one C call.
@@ -822,7 +866,38 @@ def _quality_control(
         for i in np.flatnonzero(changed)
     ]
     new_reading_flags = {name: flags[name][count:] for name in QC_COLUMNS}
-    return new_reading_flags, changes
+    return new_reading_flags, changes, context
+
+
+def _keep_recent_values(
+    session: Session,
+    *,
+    station: Station,
+    context: _Context,
+    micros: np.ndarray,
+    new_values: Mapping[str, np.ndarray],
+    stored_here: np.ndarray,
+    inserted: Mapping[dt.datetime, int],
+) -> None:
+    """Stage, for after the commit, the neighbours QC read and the rows this request stored
+    (``stored_here`` marks them among the new values, in time order): the next request of
+    the station reads only what lies outside them (:mod:`app.readings.recent`)."""
+    if context.table_max_id is None or not inserted:
+        return
+    ours = {name: values[stored_here] for name, values in new_values.items()}
+    ours["seconds"] = micros[stored_here] / 1e6  # as _sqlite_seconds reads them back
+    neighbours = {name: context.columns[name] for name in recent.VALUE_COLUMNS}
+    recent.stage(
+        session,
+        _memory_key(station),
+        recent.RecentValues(
+            lo_us=context.start_us,
+            hi_us=context.end_us,
+            # SQLite gave this request's rows the largest ids, under its write lock.
+            table_max_id=max(context.table_max_id, *inserted.values()),
+            columns=recent.joined([neighbours, ours]),
+        ),
+    )
 
 
 def _column_chunks(columns: Mapping[str, list[Any]], size: int) -> list[dict[str, list[Any]]]:
@@ -1099,7 +1174,7 @@ def ingest_readings(
         sensor_fault=sensor_fault,
     )
     derived_available = np.isfinite(derived["omega_aragonite"])
-    flags, neighbour_changes = _quality_control(
+    flags, neighbour_changes, context = _quality_control(
         session,
         station=station,
         limits=limits,
@@ -1156,6 +1231,29 @@ def ingest_readings(
                     "time; stored readings are never overwritten"
                 ],
             )
+    _keep_recent_values(
+        session,
+        station=station,
+        context=context,
+        micros=micros,
+        new_values={
+            "temperature_c": temperature,
+            "salinity": salinity,
+            "ph": ph,
+            "alkalinity_input_umol_kg": alkalinity_input,
+            "from_station": np.array(
+                [source in ("fixed", "salinity_line") for source in alkalinity_source],
+                dtype=bool,
+            ),
+            "available": derived_available,
+        },
+        stored_here=(
+            np.ones(len(candidates), dtype=bool)
+            if len(inserted) == len(candidates)
+            else np.array([c.reading.observed_at in inserted for c in candidates], dtype=bool)
+        ),
+        inserted=inserted,
+    )
     if neighbour_changes:
         for chunk in _chunks(neighbour_changes):
             session.execute(update(Reading), list(chunk))
