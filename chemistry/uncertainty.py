@@ -21,7 +21,7 @@ Keys refer to ``chemistry/bibliography.md``.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from types import MappingProxyType
 from typing import Any
 
@@ -130,6 +130,7 @@ def standard_uncertainty(
     constant_uncertainties: Mapping[str, float] | None = ORR2018_CONSTANT_UNCERTAINTIES,
     at_temperature: Any = None,
     base: CarbonateState | None = None,
+    outputs: Sequence[str] | None = None,
 ) -> dict[str, np.ndarray]:
     """Standard uncertainty of every numeric output of :func:`~chemistry.solver.solve`.
 
@@ -164,12 +165,16 @@ def standard_uncertainty(
         ``at_temperature`` when that is given. It is used as it is (one
         solve fewer, the same numbers); the inputs are then validated by
         the caller's own solve, not again here.
+    outputs : sequence of str, optional
+        Keys of ``CarbonateState.as_dict()`` to return (default: all); a
+        caller that needs one output skips the others' arithmetic.
 
     Returns
     -------
     dict of str to ndarray
-        For each key of ``CarbonateState.as_dict()``, the standard
-        uncertainty in that output's unit, in the broadcast shape.
+        For each key of ``CarbonateState.as_dict()`` (or of ``outputs``),
+        the standard uncertainty in that output's unit, in the broadcast
+        shape.
 
     Raises
     ------
@@ -232,6 +237,16 @@ def standard_uncertainty(
         if at_temperature is not None:
             base = _carry_to_temperature(base, at_temperature)
     base_outputs = base.as_dict()
+    if outputs is not None:
+        unknown = [key for key in outputs if key not in base_outputs]
+        if unknown:
+            raise ChemistryInputError(
+                f"outputs has unknown keys {unknown}; allowed: {', '.join(base_outputs)}.",
+                parameter="outputs",
+                value=unknown,
+                allowed=", ".join(base_outputs),
+            )
+        base_outputs = {key: base_outputs[key] for key in outputs}
     if not plan:
         return {key: np.zeros(np.shape(value)) for key, value in base_outputs.items()}
 
@@ -284,8 +299,8 @@ def standard_uncertainty(
         perturbed = solve(**stacked, **part_options, constant_shifts=constant_shifts or None)
         if flat_tank is not None:
             perturbed = _carry_to_temperature(perturbed, flat_tank[part])
-        outputs = perturbed.as_dict()
-        stacked_outputs = np.stack([np.broadcast_to(outputs[key], (rows, part.stop - part.start))
+        solved = perturbed.as_dict()
+        stacked_outputs = np.stack([np.broadcast_to(solved[key], (rows, part.stop - part.start))
                                     for key in keys])
         for row, (_, _, step, u) in enumerate(flat_plan):
             derivative = (stacked_outputs[:, row] - base_stack[:, part]) / step[part]

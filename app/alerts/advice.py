@@ -184,6 +184,7 @@ def predict_tank_water(
             u_alkalinity=np.asarray(u_alkalinity, dtype=float),
             at_temperature=culture,
             base=base,
+            outputs=("omega_aragonite",),
         )["omega_aragonite"]
     else:
         uncertainty = np.full(omega.shape, np.nan)

@@ -15,12 +15,13 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import functools
 import logging
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from sqlalchemy import func, or_, select
+from sqlalchemy import bindparam, func, or_, select
 from sqlalchemy.orm import Session
 
 import chemistry
@@ -70,23 +71,30 @@ class Observed:
     probability: float | None = None
 
 
-def _rules_for_station(
-    session: Session, station: Station, *, skip_locked: bool = False
-) -> list[tuple[AlertRule, Tank | None]]:
-    fed_tanks = select(Tank.pk).where(Tank.source_station_pk == station.pk)
-    query = (
+@functools.lru_cache(maxsize=2)
+def _rules_query(skip_locked: bool) -> Any:
+    """The rules of station ``station_pk`` and of the tanks it feeds, built once (every
+    ingest asks; building the select costs more than running it)."""
+    station_pk = bindparam("station_pk")
+    fed_tanks = select(Tank.pk).where(Tank.source_station_pk == station_pk)
+    return (
         select(AlertRule)
         .where(
             AlertRule.enabled.is_(True),
             AlertRule.deleted_at.is_(None),
-            or_(AlertRule.station_pk == station.pk, AlertRule.tank_pk.in_(fed_tanks)),
+            or_(AlertRule.station_pk == station_pk, AlertRule.tank_pk.in_(fed_tanks)),
         )
         .order_by(AlertRule.id)
         .with_for_update(skip_locked=skip_locked)
         # Locked rows are read afresh: another transaction may have just changed them.
         .execution_options(populate_existing=True)
     )
-    rules = list(session.scalars(query))
+
+
+def _rules_for_station(
+    session: Session, station: Station, *, skip_locked: bool = False
+) -> list[tuple[AlertRule, Tank | None]]:
+    rules = list(session.scalars(_rules_query(skip_locked), {"station_pk": station.pk}))
     return [(rule, session.get(Tank, rule.tank_pk) if rule.tank_pk else None) for rule in rules]
 
 

@@ -448,7 +448,11 @@ def _derive(
         )
         state = solve(**inputs)
         uncertainty = standard_uncertainty(
-            **inputs, u_ph=u_ph, u_alkalinity=u_alkalinity[index], base=state
+            **inputs,
+            u_ph=u_ph,
+            u_alkalinity=u_alkalinity[index],
+            base=state,
+            outputs=("omega_aragonite",),  # the one uncertainty a reading stores
         )
         values = {
             "ph_total": state.ph_total,

@@ -211,3 +211,26 @@ def test_an_already_solved_base_gives_the_same_uncertainty_with_one_solve_fewer(
     for key, value in without.items():
         np.testing.assert_array_equal(with_base[key], value, err_msg=key)
     assert float(with_base["omega_aragonite"]) > 0
+
+
+def test_asking_for_some_outputs_gives_those_of_the_whole_budget():
+    inputs = dict(
+        temperature=np.array([8.0, 15.0, 22.0]),
+        salinity=np.array([28.0, 31.0, 34.0]),
+        ph=np.array([7.6, 7.8, 8.0]),
+        alkalinity=2150.0,
+        ph_scale="total",
+    )
+    whole = standard_uncertainty(**inputs, u_ph=0.02, u_alkalinity=10.0, at_temperature=24.0)
+    some = standard_uncertainty(
+        **inputs,
+        u_ph=0.02,
+        u_alkalinity=10.0,
+        at_temperature=24.0,
+        outputs=("omega_aragonite", "pco2"),
+    )
+    assert set(some) == {"omega_aragonite", "pco2"}
+    for key, value in some.items():
+        np.testing.assert_array_equal(value, whole[key])
+    with pytest.raises(ChemistryInputError, match="outputs has unknown keys"):
+        standard_uncertainty(**inputs, u_ph=0.02, outputs=("omega",))
