@@ -804,13 +804,16 @@ def _integers(joined: str) -> np.ndarray:
     return values
 
 
+_MINUTE_BITS = np.left_shift(1, np.arange(MINUTES_PER_QUARTER, dtype=np.int64))
+_MINUTE_OFFSETS = 60 * np.arange(MINUTES_PER_QUARTER, dtype=np.int64)
+
+
 def occupied_minutes(quarter_start: np.ndarray, minute_mask: np.ndarray) -> np.ndarray:
     """The minutes (as UTC ``datetime64[us]``) with a reading, in time order."""
-    bits = (minute_mask[:, None] >> np.arange(MINUTES_PER_QUARTER)) & 1
-    rows, minute = np.nonzero(bits)
-    seconds = quarter_start[rows] + 60 * minute
+    occupied = (np.asarray(minute_mask, dtype=np.int64)[:, None] & _MINUTE_BITS) != 0
     # Row by row and minute by minute: already in time order when the quarters are.
+    seconds = (np.asarray(quarter_start, dtype=np.int64)[:, None] + _MINUTE_OFFSETS)[occupied]
     if quarter_start.size > 1 and not np.all(quarter_start[1:] > quarter_start[:-1]):
         seconds = np.sort(seconds)
-    return seconds.astype("datetime64[s]").astype("datetime64[us]")
+    return (seconds * 1_000_000).view("datetime64[us]")
 
