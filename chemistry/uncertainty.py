@@ -92,6 +92,18 @@ def _perturbation_plan(
         else:
             step = np.asarray(_INPUT_STEPS[name])
         plan.append(("input", name, step, u))
+    if constant_uncertainties is ORR2018_CONSTANT_UNCERTAINTIES:
+        # The default set is checked once (every tank advice and ingest uses it).
+        plan.extend(_ORR2018_PLAN)
+    else:
+        plan.extend(_constant_plan(constant_uncertainties))
+    return plan
+
+
+def _constant_plan(
+    constant_uncertainties: Mapping[str, float] | None,
+) -> list[tuple[str, str, np.ndarray, np.ndarray]]:
+    plan = []
     for name, uncertainty in (constant_uncertainties or {}).items():
         if name not in ORR2018_CONSTANT_UNCERTAINTIES:
             raise ChemistryInputError(
@@ -105,6 +117,16 @@ def _perturbation_plan(
         if np.any(u > 0):
             plan.append(("constant", name, np.asarray(_CONSTANT_STEP), u))
     return plan
+
+
+def _frozen(plan: list[tuple[str, str, np.ndarray, np.ndarray]]) -> tuple[Any, ...]:
+    for _kind, _name, step, u in plan:
+        step.flags.writeable = False
+        u.flags.writeable = False
+    return tuple(plan)
+
+
+_ORR2018_PLAN = _frozen(_constant_plan(ORR2018_CONSTANT_UNCERTAINTIES))
 
 
 def standard_uncertainty(
