@@ -249,14 +249,31 @@ def _latest_readings_query(stations: int) -> Any:
 
 
 def open_alerts(*, session: Session, site_id: str) -> list[tuple[Alert, AlertRule]]:
+    rows = session.execute(_open_alerts_query(), {"site_id": site_id}).all()
+    return [(alert, rule) for alert, rule in rows]
+
+
+@functools.cache
+def _open_alerts_query() -> Any:
+    """The query of :func:`open_alerts`, built once (parameter ``site_id``): every status
+    asks, and building an ORM select costs about what running it does."""
     states = [str(s) for s in OPEN_ALERT_STATES]
-    rows = session.execute(
+    return (
         select(Alert, AlertRule)
         .join(AlertRule, Alert.rule_id == AlertRule.id)
-        .where(Alert.site_id == site_id, Alert.state.in_(states))
+        .where(Alert.site_id == bindparam("site_id"), Alert.state.in_(states))
         .order_by(Alert.since)
-    ).all()
-    return [(alert, rule) for alert, rule in rows]
+    )
+
+
+@functools.cache
+def _site_stations_query() -> Any:
+    return select(Station).where(Station.site_id == bindparam("site_id")).order_by(Station.id)
+
+
+@functools.cache
+def _site_tanks_query() -> Any:
+    return select(Tank).where(Tank.site_id == bindparam("site_id")).order_by(Tank.id)
 
 
 # --------------------------------------------------------------------------------------
@@ -791,10 +808,8 @@ def site_status(
 ) -> dict[str, Any]:
     """Everything the daily status shows, as JSON-able data."""
     window = day_window(site, day, now)
-    stations = list(
-        session.scalars(select(Station).where(Station.site_id == site.id).order_by(Station.id))
-    )
-    tanks = list(session.scalars(select(Tank).where(Tank.site_id == site.id).order_by(Tank.id)))
+    stations = list(session.scalars(_site_stations_query(), {"site_id": site.id}))
+    tanks = list(session.scalars(_site_tanks_query(), {"site_id": site.id}))
     alerts = open_alerts(session=session, site_id=site.id)
     tanks_by_pk = {t.pk: t for t in tanks}
     stations_by_pk = {s.pk: s for s in stations}
