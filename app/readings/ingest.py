@@ -43,6 +43,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Session
 
+from app.db_rows import driver_rows
 from app.readings import recent
 from app.readings.models import Reading
 from app.readings.qc import (
@@ -579,37 +580,6 @@ def _small_match_query(with_ids: bool) -> Select[Any]:
     )
 
 
-@functools.lru_cache(maxsize=32)
-def _sqlite_compiled(statement: Any, dialect: Any) -> tuple[str, tuple[str, ...], tuple[Any, ...]]:
-    """SQL text, positional parameter names and their bind processors, compiled once."""
-    compiled = statement.compile(dialect=dialect)
-    names = tuple(compiled.positiontup or ())
-    processors = tuple(
-        compiled.binds[name].type.dialect_impl(dialect).bind_processor(dialect) for name in names
-    )
-    return compiled.string, names, processors
-
-
-def _sqlite_fetchall(
-    connection: Connection, statement: Any, parameters: Mapping[str, Any]
-) -> list[tuple[Any, ...]]:
-    """All rows of a built-once statement from the driver's cursor, in the session's
-    transaction, with each parameter through its column type's bind processor (so a
-    time is compared as the text the column stores). Rows are plain tuples: only for
-    statements whose columns need no result processing."""
-    sql, names, processors = _sqlite_compiled(statement, connection.dialect)
-    values = [
-        parameters[name] if process is None else process(parameters[name])
-        for name, process in zip(names, processors, strict=True)
-    ]
-    cursor = connection.connection.driver_connection.cursor()
-    try:
-        cursor.execute(sql, values)
-        return cursor.fetchall()
-    finally:
-        cursor.close()
-
-
 @dataclass
 class _Context:
     """The stored neighbours QC read (``columns``, see :func:`_context_columns`) and, on
@@ -712,7 +682,7 @@ def _sqlite_context(
             None if kept.hi_us >= end_us else _EPOCH + dt.timedelta(microseconds=kept.hi_us + 1)
         )
     if read_from is not None:
-        rows = _sqlite_fetchall(
+        rows = driver_rows(
             connection, values_query, {"station_pk": station.pk, "start": read_from, "end": end}
         )
         if rows:
@@ -721,7 +691,7 @@ def _sqlite_context(
             columns = {name: () for name in _VALUE_NAMES}
         parts.append(_context_arrays(columns, _sqlite_seconds(columns["observed_at"])))
     out = recent.joined(parts) if len(parts) > 1 else dict(parts[0])
-    flag_rows = _sqlite_fetchall(
+    flag_rows = driver_rows(
         connection,
         flags_query,
         {"station_pk": station.pk, "start": affected[0], "end": affected[1]},
@@ -756,7 +726,7 @@ def _context_columns_whole(
     query = _context_query(sqlite)
     parameters = {"station_pk": station_pk, "start": start, "end": end}
     if sqlite:
-        rows: Sequence[Any] = _sqlite_fetchall(connection, query, parameters)
+        rows: Sequence[Any] = driver_rows(connection, query, parameters)
     else:
         # Core rows straight from the connection: no ORM row processing.
         rows = connection.execute(query, parameters).all()

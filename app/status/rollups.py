@@ -63,6 +63,7 @@ from sqlalchemy.orm import Mapped, Session, mapped_column
 from sqlalchemy.sql.elements import ColumnElement
 
 from app.db import Base
+from app.db_rows import driver_rows
 from app.readings.models import Reading
 
 #: Width of a rollup bucket (seconds): a quarter hour.
@@ -619,22 +620,6 @@ def by_station(
         lo, hi = np.searchsorted(station, pk, "left"), np.searchsorted(station, pk, "right")
         out[pk] = {name: values[lo:hi] for name, values in arrays.items()}
     return out
-
-
-def driver_rows(
-    connection: Any, statement: Any, parameters: Mapping[str, Any] | None = None
-) -> list[tuple[Any, ...]]:
-    """The rows of ``statement`` as the database driver gives them (plain tuples, no
-    result processing: SQLite times stay text).
-
-    A week of quarters for six stations is thousands of rows, and a day of readings
-    1,500; SQLAlchemy's result rows cost more than the query itself.
-    """
-    result = connection.execute(statement, parameters)
-    try:
-        return list(result.cursor.fetchall())
-    finally:
-        result.close()
 
 
 def _total(name: str) -> Any:

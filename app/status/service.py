@@ -35,6 +35,7 @@ from app.alerts.advice import (
 )
 from app.alerts.models import Alert, AlertRule
 from app.alerts.state_machine import OPEN_ALERT_STATES
+from app.db_rows import driver_rows
 from app.readings.models import Reading
 from app.sites.models import Site, Station, Tank
 from app.status import compute, rollups
@@ -148,7 +149,7 @@ def stations_columns(
 ) -> dict[int, dict[str, np.ndarray]]:
     """:func:`station_columns` of several stations in one query, by station."""
     sqlite = session.get_bind().dialect.name == "sqlite"
-    rows = rollups.driver_rows(
+    rows = driver_rows(
         session.connection(),
         _columns_query(sqlite, tuple(names)),
         {"station_pks": list(station_pks), "start": start, "end": end},
@@ -197,7 +198,7 @@ def good_water_columns(
     sqlite = session.get_bind().dialect.name == "sqlite"
     out: dict[int, dict[str, np.ndarray] | None] = {}
     for pk in station_pks:
-        rows = rollups.driver_rows(
+        rows = driver_rows(
             session.connection(),
             _good_water_query(sqlite),
             {"station_pk": pk, "start": start, "end": end},
