@@ -71,10 +71,13 @@ def to_epoch_seconds(times: Iterable[datetime] | np.ndarray) -> np.ndarray:
 
     Parameters
     ----------
-    times : sequence of timezone-aware datetime, or numpy datetime64 array (taken as UTC)
+    times : sequence of timezone-aware datetime, numpy datetime64 array (taken as UTC), or
+        numeric array of seconds since 1970 (returned as floats)
     """
     if isinstance(times, np.ndarray) and np.issubdtype(times.dtype, np.datetime64):
         return times.astype("datetime64[us]").astype(np.int64) / 1e6
+    if isinstance(times, np.ndarray) and times.dtype.kind in "fiu":  # already seconds
+        return times.astype(float, copy=False)
     out = []
     for t in times:
         if isinstance(t, datetime):

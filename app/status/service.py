@@ -474,17 +474,21 @@ def station_status(
     the times, sub-minute sampling) the times are read from the readings as before.
     """
     quarter_start, minute_mask, off_minute = week
+    # Times as float seconds since 1970: plain number comparisons and no conversions in
+    # the computations below (a week is 10,080 minutes a station).
     if off_minute == 0:
-        history = rollups.occupied_minutes(quarter_start, minute_mask)
+        history = rollups.occupied_seconds(quarter_start, minute_mask).astype(float)
     else:
-        history = station_columns(
-            session=session,
-            station_pk=station.pk,
-            start=window.as_of - LOOKBACK,
-            end=window.as_of,
-        )["observed_at"]
+        history = compute.to_epoch_seconds(
+            station_columns(
+                session=session,
+                station_pk=station.pk,
+                start=window.as_of - LOOKBACK,
+                end=window.as_of,
+            )["observed_at"]
+        )
     # The day lies inside the look-back week (both end at as_of).
-    day_times = history[history >= np.datetime64(window.start.replace(tzinfo=None), "us")]
+    day_times = history[history >= window.start.timestamp()]
     inferred = compute.infer_sampling_interval(history)
     interval = inferred or FALLBACK_SAMPLING_INTERVAL
     return {

@@ -304,11 +304,16 @@ def test_joined_integers_parse_exactly_and_refuse_anything_else():
 def test_occupied_minutes_are_in_time_order_whatever_the_quarter_order():
     import numpy as np
 
-    from app.status.rollups import occupied_minutes
+    from app.status.rollups import _unpacked, occupied_seconds
 
     # Minutes 0 and 14 of the 00:00 quarter, minute 1 of the 00:15 quarter (bits 0, 14, 1).
     quarters = np.array([0, 900], dtype=np.int64)
     masks = np.array([1 | 1 << 14, 1 << 1], dtype=np.int64)
-    expected = np.array([0, 14 * 60, 900 + 60], dtype="datetime64[s]").astype("datetime64[us]")
-    np.testing.assert_array_equal(occupied_minutes(quarters, masks), expected)
-    np.testing.assert_array_equal(occupied_minutes(quarters[::-1], masks[::-1]), expected)
+    expected = [0, 14 * 60, 900 + 60]
+    assert occupied_seconds(quarters, masks).tolist() == expected
+    assert occupied_seconds(quarters[::-1], masks[::-1]).tolist() == expected
+    # As the status reads them: each quarter's index and mask packed in one number.
+    packed = ",".join(str(q // 900 * 32768 + m) for q, m in zip(quarters, masks, strict=True))
+    unpacked_quarters, unpacked_masks = _unpacked(packed)
+    assert unpacked_quarters.tolist() == quarters.tolist()
+    assert unpacked_masks.tolist() == masks.tolist()
