@@ -310,6 +310,8 @@ def _held_quarters_statement() -> Any:
 
 
 _MICROSECONDS = 1_000_000
+#: Requests storing fewer readings than this recount their quarters in SQL only.
+_FEW_READINGS = 20
 
 
 def rows_from_columns(
@@ -414,9 +416,14 @@ def refresh_rollups(
     A quarter that had no rollup row before (checked under the station's lock) held no
     readings: its row is worked out from ``new_rows`` in memory (:func:`rows_from_columns`),
     without reading back what was just written. Every other touched quarter, and all of
-    them when ``new_rows`` is not given, is recomputed from the readings in SQL.
+    them when ``new_rows`` is not given or the request stored fewer than twenty readings,
+    is recomputed from the readings in SQL.
     """
-    in_memory = new_rows is not None and new_micros is not None and bool(inserted)
+    # A device's usual request (a reading or a few) lands in a quarter that already has
+    # rows: the look-up of held quarters would be one round trip more for nothing.
+    in_memory = (
+        new_rows is not None and new_micros is not None and len(inserted) >= _FEW_READINGS
+    )
     if in_memory:
         micros = np.asarray(new_micros, dtype=np.int64)
         seconds = micros // _MICROSECONDS
