@@ -81,7 +81,10 @@ def recall(key: Hashable, *, start_us: int, table_max_id: int) -> RecentValues |
 
 
 def stage(session: Session, key: Hashable, entry: RecentValues) -> None:
-    """Keep ``entry`` for ``key`` if and when ``session`` commits."""
+    """Keep ``entry`` for ``key`` if and when ``session`` commits. Its arrays become
+    read-only: later requests get views of them, and a write would change what they see."""
+    for values in entry.columns.values():
+        values.flags.writeable = False
     session.info.setdefault(_STAGED_KEY, {})[key] = entry
 
 
@@ -107,12 +110,13 @@ def joined(parts: list[Mapping[str, np.ndarray]]) -> dict[str, np.ndarray]:
 
 
 def forget(key: Hashable) -> None:
+    """Drop the entry of ``key`` (its values disagreed with the table)."""
     with _lock:
         _entries.pop(key, None)
 
 
 def forget_all() -> None:
-    """Drop every kept entry (tests, and a process that restores its database file)."""
+    """Drop every kept entry (the tests start from an empty memory)."""
     with _lock:
         _entries.clear()
 

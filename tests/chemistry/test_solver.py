@@ -341,3 +341,19 @@ def test_long_arrays_are_solved_in_slices_with_global_indices():
     with pytest.raises(ChemistryInputError, match=r"index \(1, 5000\)") as caught:
         solve(temperature=12.0, salinity=31.0, dic=dic, pco2=1000.0)
     assert caught.value.index == (1, 5000)
+
+
+def test_remembered_constants_of_one_water_equal_the_array_ones_and_are_not_shared():
+    """compute_constants keeps the set of one water (floats); each caller gets a copy, and
+    the values are the ones the array path gives for the same water."""
+    from chemistry.constants import compute_constants
+
+    first = compute_constants(12.0, 31.0, 0.0, "lueker2000", "lee2010")
+    first["K1"] = -1.0  # a caller changing its own set
+    again = compute_constants(12.0, 31.0, 0.0, "lueker2000", "lee2010")
+    arrays = compute_constants(
+        np.array([12.0, 20.0]), np.array([31.0, 33.0]), np.zeros(2), "lueker2000", "lee2010"
+    )
+    assert again["K1"] > 0
+    for name, value in again.items():
+        assert value == pytest.approx(float(np.asarray(arrays[name])[0]), rel=1e-13), name

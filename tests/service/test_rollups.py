@@ -301,7 +301,7 @@ def test_joined_integers_parse_exactly_and_refuse_anything_else():
                 _integers(bad)
 
 
-def test_occupied_minutes_are_in_time_order_whatever_the_quarter_order():
+def test_occupied_seconds_are_in_time_order_whatever_the_quarter_order():
     import numpy as np
 
     from app.status.rollups import _unpacked, occupied_seconds
