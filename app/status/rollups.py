@@ -579,12 +579,12 @@ def _piece_values(station_pks: Sequence[int], lo: float, hi: float) -> dict[str,
     }
 
 
-@functools.lru_cache(maxsize=8)
-def _quarters_statement(names: tuple[str, ...]) -> Any:
+@functools.lru_cache(maxsize=32)
+def _quarters_statement(names: tuple[str, ...], stations: int) -> Any:
     table = ReadingRollup.__table__
     return (
         select(table.c.station_pk, *(table.c[n] for n in names))
-        .where(*_whole_quarters(table))
+        .where(*_whole_quarters(table, stations))
         .order_by(table.c.station_pk, table.c.quarter_start)
     )
 
@@ -609,11 +609,11 @@ def quarters_between(
     connection = session.connection()
     dialect = connection.dialect.name
     rows = []
-    if last > first:
+    if last > first and station_pks:
         rows = driver_rows(
             connection,
-            _quarters_statement(names),
-            {"station_pks": list(station_pks), "first": first, "last": last},
+            _quarters_statement(names, len(station_pks)),
+            _whole_quarter_values(station_pks, first, last),
         )
     partial = _partial_statement(dialect)
     for lo, hi in pieces:
@@ -655,23 +655,34 @@ def _total(name: str) -> Any:
     return func.sum
 
 
-@functools.lru_cache(maxsize=8)
-def _totals_statement(names: tuple[str, ...]) -> Any:
+@functools.lru_cache(maxsize=32)
+def _totals_statement(names: tuple[str, ...], stations: int) -> Any:
     table = ReadingRollup.__table__
     return (
         select(table.c.station_pk, *(_total(n)(table.c[n]) for n in names))
-        .where(*_whole_quarters(table))
+        .where(*_whole_quarters(table, stations))
         .group_by(table.c.station_pk)
     )
 
 
-def _whole_quarters(table: Any) -> list[Any]:
-    """Rows of stations ``station_pks`` with ``first`` <= quarter_start < ``last``."""
+def _whole_quarters(table: Any, stations: int) -> list[Any]:
+    """Rows of ``stations`` stations (parameters ``station_0`` ...) with ``first`` <=
+    quarter_start < ``last``. One parameter per station rather than an expanding list:
+    the statement is then compiled once per number of stations and runs on the driver's
+    cursor (:func:`app.db_rows.driver_rows`)."""
     return [
-        table.c.station_pk.in_(bindparam("station_pks", expanding=True)),
+        table.c.station_pk.in_([bindparam(f"station_{n}") for n in range(stations)]),
         table.c.quarter_start >= bindparam("first"),
         table.c.quarter_start < bindparam("last"),
     ]
+
+
+def _whole_quarter_values(station_pks: Sequence[int], first: int, last: int) -> dict[str, Any]:
+    return {
+        **{f"station_{n}": pk for n, pk in enumerate(station_pks)},
+        "first": first,
+        "last": last,
+    }
 
 
 def totals_between(
@@ -689,11 +700,12 @@ def totals_between(
     connection = session.connection()
     dialect = connection.dialect.name
     rows = []
-    if last > first:
-        rows = connection.execute(
-            _totals_statement(tuple(names)),
-            {"station_pks": list(station_pks), "first": first, "last": last},
-        ).all()
+    if last > first and station_pks:
+        rows = driver_rows(
+            connection,
+            _totals_statement(tuple(names), len(station_pks)),
+            _whole_quarter_values(station_pks, first, last),
+        )
     partial = _partial_statement(dialect)
     for lo, hi in pieces:
         rows += connection.execute(
@@ -730,8 +742,8 @@ def _dtype(name: str) -> Any:
     return np.int64 if isinstance(column.type, (Integer, BigInteger)) else float
 
 
-@functools.lru_cache(maxsize=4)
-def _masks_statement(dialect: str) -> Any:
+@functools.lru_cache(maxsize=32)
+def _masks_statement(dialect: str, stations: int) -> Any:
     table = ReadingRollup.__table__
 
     # One number per quarter: its index (the start over 900 s) and its 15-bit mask, so the
@@ -747,7 +759,7 @@ def _masks_statement(dialect: str) -> Any:
         joined = func.group_concat(packed)
     return (
         select(table.c.station_pk, func.sum(table.c.off_minute), joined)
-        .where(*_whole_quarters(table))
+        .where(*_whole_quarters(table, stations))
         .group_by(table.c.station_pk)
     )
 
@@ -781,11 +793,11 @@ def minute_masks_between(
     out: dict[int, tuple[list[np.ndarray], list[np.ndarray], int]] = {
         pk: ([], [], 0) for pk in station_pks
     }
-    if last > first:
+    if last > first and station_pks:
         rows = driver_rows(
             connection,
-            _masks_statement(connection.dialect.name),
-            {"station_pks": list(station_pks), "first": first, "last": last},
+            _masks_statement(connection.dialect.name, len(station_pks)),
+            _whole_quarter_values(station_pks, first, last),
         )
         for pk, off_minute, joined in rows:
             quarters, masks = _unpacked(joined)
