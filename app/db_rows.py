@@ -21,10 +21,16 @@ def _sqlite_compiled(
 ) -> tuple[str, tuple[tuple[str, Any, Any, bool], ...]] | None:
     """SQL text and, per positional parameter, its name, its type's bind processor, the
     value bound in the statement itself (a constant) and whether the caller must give one;
-    None when a parameter expands (an ``IN`` list), whose text depends on the values."""
+    None when the text depends on the values (an expanding ``IN`` list, a parameter
+    rendered at execution) or a bound value is worked out at execution (a callable)."""
     compiled = statement.compile(dialect=dialect)
     names = tuple(compiled.positiontup or ())
-    if any(compiled.binds[name].expanding for name in names):
+    if (
+        any(compiled.binds[name].expanding for name in names)
+        or compiled.post_compile_params
+        or compiled.literal_execute_params
+        or any(compiled.binds[name].callable for name in names)
+    ):
         return None
     parameters = tuple(
         (

@@ -857,8 +857,9 @@ def _solve_core(t, s, p, given, po4, si, ph_scale, carbonic, boron, shifts, shap
         nutrient_values = (po4, si)
     else:
         outputs = [_read_only(v, t.size, shape) for v in values]
-        inputs = (t.reshape(shape), s.reshape(shape), p.reshape(shape))
-        nutrient_values = (po4.reshape(shape), si.reshape(shape))
+        # Read-only too: flat() may have reshaped the caller's own arrays.
+        inputs = tuple(_read_only(v, t.size, shape) for v in (t, s, p))
+        nutrient_values = (_read_only(po4, t.size, shape), _read_only(si, t.size, shape))
     return CarbonateState(
         *outputs,
         *inputs,

@@ -617,8 +617,9 @@ def _context_columns(
         if found is not None:
             columns, table_max_id = found
             return _Context(columns, start_us, end_us, table_max_id)
-    # SQLite's two parts disagreed (they cannot within one transaction) or PostgreSQL:
-    # every column of every row in one query.
+    # SQLite's parts disagreed (kept values that no longer match the table; the table's
+    # own two reads cannot disagree within one transaction) or PostgreSQL: every column of
+    # every row in one query.
     columns = _context_columns_whole(connection, station.pk, start, end, affected)
     return _Context(columns, start_us, end_us)
 
@@ -678,8 +679,12 @@ def _sqlite_context(
     read_from: dt.datetime | None = start
     if kept is not None:
         parts.append(recent.between(kept, start_us, end_us))
+        # The rest of the window: after what is kept, and never before the window itself
+        # (kept values of an earlier stretch, after a backfill, cover none of it).
         read_from = (
-            None if kept.hi_us >= end_us else _EPOCH + dt.timedelta(microseconds=kept.hi_us + 1)
+            None
+            if kept.hi_us >= end_us
+            else _EPOCH + dt.timedelta(microseconds=max(start_us, kept.hi_us + 1))
         )
     if read_from is not None:
         rows = driver_rows(

@@ -19,7 +19,8 @@ Why the kept values can be trusted:
   and the next request reads everything again.
 
 PostgreSQL hands out ids from a sequence in no commit order, so this memory is not used
-there. Entries are staged in the session and kept only when it commits.
+there. Entries are staged in the session and kept only when its outermost transaction
+commits (not when a savepoint is released); any rollback drops them.
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ import threading
 from collections import OrderedDict
 from collections.abc import Hashable, Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from sqlalchemy import event
@@ -123,6 +125,8 @@ def forget_all() -> None:
 
 @event.listens_for(Session, "after_commit")
 def _keep_staged(session: Session) -> None:
+    if session.in_nested_transaction():  # a savepoint released: nothing is committed yet
+        return
     staged: dict[Hashable, RecentValues] = session.info.pop(_STAGED_KEY, None) or {}
     if not staged:
         return
@@ -136,7 +140,16 @@ def _keep_staged(session: Session) -> None:
 
 @event.listens_for(Session, "after_rollback")
 def _drop_staged(session: Session) -> None:
+    # Any rollback, a savepoint's too: dropping what may still commit only costs a read.
     session.info.pop(_STAGED_KEY, None)
+
+
+@event.listens_for(Session, "after_transaction_end")
+def _drop_unkept(session: Session, transaction: Any) -> None:
+    # The outermost transaction ended without a commit (a session closed with its work
+    # undone): what it staged must not be kept by a later commit of the same session.
+    if transaction.parent is None:
+        session.info.pop(_STAGED_KEY, None)
 
 
 def entry_count() -> int:

@@ -174,8 +174,11 @@ def _number(value: int) -> ColumnElement[Any]:
 def _epoch_seconds(dialect: str) -> ColumnElement[Any]:
     """Whole seconds since 1970 of ``observed_at`` (UTC), in SQL."""
     if dialect == "sqlite":
-        # Stored as naive UTC text 'YYYY-MM-DD HH:MM:SS.ffffff'; %s drops the fraction.
-        return cast(func.strftime(literal_column("'%s'"), Reading.observed_at), Integer)
+        # Stored as naive UTC text 'YYYY-MM-DD HH:MM:SS.ffffff'. strftime('%s') rounds the
+        # fraction to the millisecond (12:14:59.9996 would become 12:15:00, the next
+        # quarter), so the fraction is cut off first: whole seconds, rounded down.
+        whole_seconds = func.substr(Reading.observed_at, _number(1), _number(19))
+        return cast(func.strftime(literal_column("'%s'"), whole_seconds), Integer)
     return cast(func.floor(extract("epoch", Reading.observed_at)), BigInteger)
 
 
@@ -431,10 +434,11 @@ def refresh_rollups(
     microseconds since 1970.
 
     A quarter that had no rollup row before (checked under the station's lock) held no
-    readings: its row is worked out from ``new_rows`` in memory (:func:`rows_from_columns`),
-    without reading back what was just written. Every other touched quarter, and all of
-    them when ``new_rows`` is not given or the request stored fewer than twenty readings,
-    is recomputed from the readings in SQL.
+    readings (every quarter with readings has a row: the aggregate and this function put a
+    reading in the same quarter, its time rounded down to the second). Its row is worked out
+    from ``new_rows`` in memory (:func:`rows_from_columns`), without reading back what was
+    just written. Every other touched quarter, and all of them when ``new_rows`` is not
+    given or the request stored fewer than twenty readings, is recomputed from the readings in SQL.
     """
     # A device's usual request (a reading or a few) lands in a quarter that already has
     # rows: the look-up of held quarters would be one round trip more for nothing.

@@ -82,9 +82,20 @@ def _run(url: str, *, memory: bool, monkeypatch: pytest.MonkeyPatch) -> tuple[li
         ]
         for number, batch in enumerate(batches):
             with Session(engine) as session:
-                if number == 3:  # another writer between two requests
+                if number == 3:  # other writers between two requests
                     other_station = session.get(type(station), other_pk)
                     session.add(stored_reading(other_station, START, ph=7.9))
+                    # ... and one of this station, inside the window the memory holds: a
+                    # kept value standing in for the table would miss it in the QC.
+                    same_station = session.get(type(station), station_pk)
+                    session.add(
+                        stored_reading(
+                            same_station,
+                            START + dt.timedelta(minutes=880),
+                            ph=8.6,
+                            source="orm",
+                        )
+                    )
                     session.commit()
                 current = session.get(type(station), station_pk)
                 result = ingest_readings(
@@ -114,7 +125,8 @@ def test_flags_are_the_same_with_and_without_the_memory(tmp_path, monkeypatch, s
     assert no_hits == 0
     # Used after the first batch, refused after the other writer (batch 4), used again.
     assert hits == 3
-    assert len(with_memory) == 1700 - 10 - 40  # the gaps 750-759 and 860-899
+    # The gaps 750-759 and 860-899, but for the reading written as an ORM row at 880.
+    assert len(with_memory) == 1700 - 10 - 40 + 1
     assert with_memory == without
     assert {row[-1] for row in with_memory} >= {1, 3}  # some readings were flagged
 
@@ -133,6 +145,10 @@ def test_a_rolled_back_request_leaves_nothing_behind(tmp_path, settings):
                 session=session, station=station, source="dev", items=_items(0, 50), now=NOW
             )
             session.rollback()
+            # A later commit of the same session must not keep what the rolled-back
+            # request staged.
+            session.add(stored_reading(station, START - dt.timedelta(days=3), ph=7.9))
+            session.commit()
         assert recent.entry_count() == 0
         with Session(engine) as session:
             station = session.get(type(station), station_pk)
@@ -141,6 +157,28 @@ def test_a_rolled_back_request_leaves_nothing_behind(tmp_path, settings):
             )
             session.commit()
         assert recent.entry_count() == 1
+    finally:
+        engine.dispose()
+        recent.forget_all()
+
+
+def test_a_savepoint_released_keeps_nothing_until_the_outer_commit(tmp_path, settings):
+    if not settings.database_url.startswith("sqlite"):
+        pytest.skip("the memory is for SQLite only")
+    recent.forget_all()
+    _settings, engine = migrated_engine(f"sqlite:///{tmp_path / 'd.db'}")
+    try:
+        with Session(engine) as session:
+            _site, station = add_site_with_intake(session)
+            session.commit()
+            nested = session.begin_nested()
+            ingest_readings(
+                session=session, station=station, source="dev", items=_items(0, 50), now=NOW
+            )
+            nested.commit()
+            assert recent.entry_count() == 0  # released, not committed
+            session.commit()
+            assert recent.entry_count() == 1
     finally:
         engine.dispose()
         recent.forget_all()

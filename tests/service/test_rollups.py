@@ -206,6 +206,33 @@ def test_rows_from_columns_refuse_readings_out_of_time_order():
         )
 
 
+def test_regression_a_time_a_moment_before_a_quarter_ends_stays_in_its_quarter(
+    session, make_station
+):
+    """SQLite's strftime('%s') rounds the fraction to the millisecond: 12:14:59.9996 was
+    counted in the 12:15 quarter by the SQL aggregate and in the 12:00 one by the numpy
+    rows, and an ingest could fail on the rollups' primary key. Times are rounded down."""
+    station = make_station()
+    base = NOW.replace(minute=0) - dt.timedelta(hours=8)
+    edge = base + dt.timedelta(minutes=14, seconds=59, microseconds=999_600)
+    batch = [_item(base + dt.timedelta(minutes=m)) for m in range(0, 14)]
+    batch += [_item(edge)]
+    batch += [_item(base + dt.timedelta(minutes=m)) for m in range(15, 40)]
+    result = ingest_readings(session=session, station=station, source="dev", items=batch, now=NOW)
+    assert result.accepted == len(batch)
+    # The same moment from a one-reading request (the SQL path) and a later edge reading.
+    late = base + dt.timedelta(minutes=29, seconds=59, microseconds=999_900)
+    single = ingest_readings(
+        session=session, station=station, source="dev2", items=[_item(late)], now=NOW
+    )
+    assert single.accepted == 1
+    session.flush()
+    assert _assert_rollups_match(session, [station.pk]) == 3
+    kept = _stored_rollups(session.connection(), [station.pk])
+    rebuild(session=session, station_pks=[station.pk])
+    assert set(_stored_rollups(session.connection(), [station.pk])) == set(kept)
+
+
 def test_rollups_follow_orm_writes(session, make_station):
     station = make_station()
     base = NOW.replace(minute=0) - dt.timedelta(days=2)
