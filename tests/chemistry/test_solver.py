@@ -346,14 +346,28 @@ def test_long_arrays_are_solved_in_slices_with_global_indices():
 def test_remembered_constants_of_one_water_equal_the_array_ones_and_are_not_shared():
     """compute_constants keeps the set of one water (floats); each caller gets a copy, and
     the values are the ones the array path gives for the same water."""
-    from chemistry.constants import compute_constants
+    from chemistry.constants import _constants_of_one_water, compute_constants
 
     first = compute_constants(12.0, 31.0, 0.0, "lueker2000", "lee2010")
+    hits = _constants_of_one_water.cache_info().hits
     first["K1"] = -1.0  # a caller changing its own set
     again = compute_constants(12.0, 31.0, 0.0, "lueker2000", "lee2010")
     arrays = compute_constants(
         np.array([12.0, 20.0]), np.array([31.0, 33.0]), np.zeros(2), "lueker2000", "lee2010"
     )
     assert again["K1"] > 0
+    assert _constants_of_one_water.cache_info().hits == hits + 1  # remembered, not redone
     for name, value in again.items():
         assert value == pytest.approx(float(np.asarray(arrays[name])[0]), rel=1e-13), name
+
+
+def test_a_states_arrays_cannot_be_written_through():
+    """The solver may hand back the caller's own arrays (reshaped): they come read-only, so
+    neither side can change the other's numbers."""
+    temperature = np.array([10.0, 20.0])
+    alkalinity = np.array([2100.0, 2200.0])
+    state = solve(temperature=temperature, salinity=31.0, ph=7.8, alkalinity=alkalinity)
+    for name in ("temperature", "salinity", "alkalinity", "omega_aragonite", "phosphate"):
+        with pytest.raises(ValueError, match="read-only"):
+            np.asarray(getattr(state, name))[0] = 0.0
+    assert temperature.flags.writeable and temperature[0] == 10.0

@@ -182,3 +182,17 @@ def test_a_savepoint_released_keeps_nothing_until_the_outer_commit(tmp_path, set
     finally:
         engine.dispose()
         recent.forget_all()
+
+
+def test_kept_values_are_read_only_once_staged(session):
+    import numpy as np
+
+    recent.forget_all()  # other tests' commits may have kept entries
+    columns = {name: np.arange(3, dtype=float) for name in recent.VALUE_COLUMNS}
+    entry = recent.RecentValues(lo_us=0, hi_us=10, table_max_id=3, columns=columns)
+    recent.stage(session, ("station", 1), entry)
+    for values in columns.values():
+        with pytest.raises(ValueError, match="read-only"):
+            values[0] = 1.0
+    session.rollback()  # and dropped with the transaction
+    assert recent.entry_count() == 0

@@ -102,7 +102,9 @@ def test_today_counts_up_to_now(session, make_site, make_station):
     assert figures["completeness_percent"] == pytest.approx(expected["completeness"])
 
 
-def test_tank_day_is_the_same_without_a_stored_dic(session, make_site, make_station, make_tank):
+def test_tank_day_is_the_same_without_a_stored_dic(
+    session, make_site, make_station, make_tank, monkeypatch
+):
     """A tank's day reads only its source's good readings with their stored DIC; a station
     with a good reading lacking the DIC is read whole and solved from pH and alkalinity
     instead. Both are the same closed-system water, so the day's minutes agree."""
@@ -119,15 +121,28 @@ def test_tank_day_is_the_same_without_a_stored_dic(session, make_site, make_stat
     session.commit()
     now = DAY_END + dt.timedelta(days=1)
 
+    from app.status import service
+
+    whole_reads = []
+    original = service.stations_columns
+
+    def counting(**kwargs):
+        whole_reads.append(kwargs["station_pks"])
+        return original(**kwargs)
+
+    monkeypatch.setattr(service, "stations_columns", counting)
+
     def tank_day() -> dict:
         [status] = site_status(session=session, site=site, day=DAY, now=now)["tanks"]
         assert status["tank_id"] == tank.id
         return status
 
     with_dic = tank_day()
+    assert whole_reads == []  # the good readings alone
     assert 0 < with_dic["minutes_below_floor"] < with_dic["minutes_with_data"]
     readings[7].dic_umol_kg = None
     session.commit()
     without = tank_day()
+    assert whole_reads == [[station.pk]]  # the whole day, solved from pH and alkalinity
     for key in ("minutes_below_floor", "minutes_below_floor_untreated", "minutes_with_data"):
         assert without[key] == pytest.approx(with_dic[key], rel=1e-9), key
