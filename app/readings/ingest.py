@@ -521,15 +521,9 @@ def _context_query(sqlite: bool) -> Select[Any]:
     )
 
 
-_VALUE_NAMES = (
-    "observed_at",
-    "temperature_c",
-    "salinity",
-    "ph",
-    "alkalinity_input_umol_kg",
-    "from_station",
-    "available",
-)
+# The columns QC reads of each stored neighbour: its time, then the values the recent-values
+# memory keeps (which holds the time as epoch seconds instead of the stored text).
+_VALUE_NAMES = ("observed_at", *recent.VALUE_COLUMNS[1:])
 
 #: What QC needs of a stored reading's alkalinity source and chemistry, as 0 or 1 from the
 #: database (small integers cost Python nothing; a string or float per row does).

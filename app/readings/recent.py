@@ -38,7 +38,8 @@ from sqlalchemy.orm import Session
 #: Stations remembered per process (least recently used dropped first).
 MAX_STATIONS = 256
 
-#: The columns kept, as ``_context_arrays`` of app.readings.ingest names them.
+#: The columns kept, as ``_context_arrays`` of app.readings.ingest names them (the ingest
+#: reads the same columns from the table, the time as its stored text).
 VALUE_COLUMNS = (
     "seconds",
     "temperature_c",

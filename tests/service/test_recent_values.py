@@ -131,57 +131,55 @@ def test_flags_are_the_same_with_and_without_the_memory(tmp_path, monkeypatch, s
     assert {row[-1] for row in with_memory} >= {1, 3}  # some readings were flagged
 
 
-def test_a_rolled_back_request_leaves_nothing_behind(tmp_path, settings):
+@pytest.fixture
+def memory_engine(tmp_path, settings):
+    """A migrated scratch SQLite database, with the memory empty before and after."""
     if not settings.database_url.startswith("sqlite"):
         pytest.skip("the memory is for SQLite only")
     recent.forget_all()
-    _settings, engine = migrated_engine(f"sqlite:///{tmp_path / 'c.db'}")
+    _settings, engine = migrated_engine(f"sqlite:///{tmp_path / 'memory.db'}")
     try:
-        with Session(engine) as session:
-            _site, station = add_site_with_intake(session)
-            session.commit()
-            station_pk = station.pk
-            ingest_readings(
-                session=session, station=station, source="dev", items=_items(0, 50), now=NOW
-            )
-            session.rollback()
-            # A later commit of the same session must not keep what the rolled-back
-            # request staged.
-            session.add(stored_reading(station, START - dt.timedelta(days=3), ph=7.9))
-            session.commit()
-        assert recent.entry_count() == 0
-        with Session(engine) as session:
-            station = session.get(type(station), station_pk)
-            ingest_readings(
-                session=session, station=station, source="dev", items=_items(0, 50), now=NOW
-            )
-            session.commit()
+        yield engine
+    finally:
+        engine.dispose()
+        recent.forget_all()
+
+
+def test_a_rolled_back_request_leaves_nothing_behind(memory_engine):
+    with Session(memory_engine) as session:
+        _site, station = add_site_with_intake(session)
+        session.commit()
+        station_pk = station.pk
+        ingest_readings(
+            session=session, station=station, source="dev", items=_items(0, 50), now=NOW
+        )
+        session.rollback()
+        # A later commit of the same session must not keep what the rolled-back
+        # request staged.
+        session.add(stored_reading(station, START - dt.timedelta(days=3), ph=7.9))
+        session.commit()
+    assert recent.entry_count() == 0
+    with Session(memory_engine) as session:
+        station = session.get(type(station), station_pk)
+        ingest_readings(
+            session=session, station=station, source="dev", items=_items(0, 50), now=NOW
+        )
+        session.commit()
+    assert recent.entry_count() == 1
+
+
+def test_a_savepoint_released_keeps_nothing_until_the_outer_commit(memory_engine):
+    with Session(memory_engine) as session:
+        _site, station = add_site_with_intake(session)
+        session.commit()
+        nested = session.begin_nested()
+        ingest_readings(
+            session=session, station=station, source="dev", items=_items(0, 50), now=NOW
+        )
+        nested.commit()
+        assert recent.entry_count() == 0  # released, not committed
+        session.commit()
         assert recent.entry_count() == 1
-    finally:
-        engine.dispose()
-        recent.forget_all()
-
-
-def test_a_savepoint_released_keeps_nothing_until_the_outer_commit(tmp_path, settings):
-    if not settings.database_url.startswith("sqlite"):
-        pytest.skip("the memory is for SQLite only")
-    recent.forget_all()
-    _settings, engine = migrated_engine(f"sqlite:///{tmp_path / 'd.db'}")
-    try:
-        with Session(engine) as session:
-            _site, station = add_site_with_intake(session)
-            session.commit()
-            nested = session.begin_nested()
-            ingest_readings(
-                session=session, station=station, source="dev", items=_items(0, 50), now=NOW
-            )
-            nested.commit()
-            assert recent.entry_count() == 0  # released, not committed
-            session.commit()
-            assert recent.entry_count() == 1
-    finally:
-        engine.dispose()
-        recent.forget_all()
 
 
 def test_kept_values_are_read_only_once_staged(session):
